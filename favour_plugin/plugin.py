@@ -1,0 +1,37 @@
+"""The plugin's lifecycle: what QGIS starts and stops.
+
+``initProcessing`` registers the processing provider (qgis_process calls only
+this, with ``iface`` None); ``initGui`` does that too when the desktop starts
+the plugin; ``unload`` removes what either added.
+"""
+
+from __future__ import annotations
+
+from qgis.core import QgsApplication
+
+
+class FavourPlugin:
+    """Favour's plugin object, created by :func:`favour_plugin.classFactory`."""
+
+    def __init__(self, iface) -> None:
+        self.iface = iface
+        self.provider = None
+
+    def initProcessing(self) -> None:  # noqa: N802 (QGIS calls it by this name)
+        """Register the ``favour`` processing provider once."""
+        if self.provider is not None:
+            return
+        from .processing.provider import FavourProvider
+
+        self.provider = FavourProvider()
+        QgsApplication.processingRegistry().addProvider(self.provider)
+
+    def initGui(self) -> None:  # noqa: N802 (QGIS calls it by this name)
+        """Start the plugin in the desktop: register the provider."""
+        self.initProcessing()
+
+    def unload(self) -> None:
+        """Remove everything :meth:`initProcessing` and :meth:`initGui` added."""
+        if self.provider is not None:
+            QgsApplication.processingRegistry().removeProvider(self.provider)
+            self.provider = None

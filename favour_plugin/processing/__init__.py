@@ -1,0 +1,1 @@
+"""Favour's processing provider (id ``favour``): thin algorithms over core and raster."""

@@ -1,0 +1,141 @@
+"""What every Favour algorithm shares: translation, help, feedback, errors and styling.
+
+Algorithms stay thin: read every parameter, call core and raster, return the
+outputs. :class:`ProcessingFeedback` bridges QGIS feedback to Favour's, and
+:func:`run_guarded` turns Favour's errors into ``QgsProcessingException``.
+Outputs are styled in the main thread by :class:`StyleLoader`, a layer
+post-processor kept alive in ``_POST_PROCESSORS`` until QGIS has used it.
+"""
+
+from __future__ import annotations
+
+import os
+
+from qgis.core import (
+    QgsProcessingAlgorithm,
+    QgsProcessingException,
+    QgsProcessingFeedback,
+    QgsProcessingLayerPostProcessorInterface,
+)
+from qgis.PyQt.QtCore import QCoreApplication
+
+from ..core.errors import CancelledError, FavourError, FavourWarning
+from ..core.feedback import Feedback
+from ..core.lineage import CAUTION, lineage_path, read_lineage
+from ..raster.style import style_path
+
+# Post-processors must outlive processAlgorithm: QGIS holds only a raw pointer.
+_POST_PROCESSORS: set = set()
+
+
+class ProcessingFeedback(Feedback):
+    """Favour feedback that reports into a ``QgsProcessingFeedback``."""
+
+    def __init__(self, feedback: QgsProcessingFeedback | None) -> None:
+        super().__init__()
+        self.feedback = feedback or QgsProcessingFeedback()
+
+    def set_progress(self, fraction: float) -> None:
+        """Report progress as a percentage."""
+        self.feedback.setProgress(100.0 * max(0.0, min(1.0, fraction)))
+
+    def info(self, text: str) -> None:
+        """Show a note in the log."""
+        self.feedback.pushInfo(text)
+
+    def warning(self, text: str, category: type[FavourWarning] = FavourWarning) -> None:
+        """Show a warning in the log and record it for the lineage."""
+        super().warning(text, category)
+        push = getattr(self.feedback, "pushWarning", None)  # QGIS >= 3.20
+        if push is not None:
+            push(text)
+        else:
+            self.feedback.reportError(text, False)
+
+    def is_cancelled(self) -> bool:
+        """Return True once the user pressed Cancel."""
+        return self.feedback.isCanceled()
+
+
+def run_guarded(function, *args, **kwargs):
+    """Call ``function``; re-raise Favour's errors as ``QgsProcessingException``."""
+    try:
+        return function(*args, **kwargs)
+    except CancelledError as exc:
+        raise QgsProcessingException(str(exc)) from None
+    except FavourError as exc:
+        raise QgsProcessingException(str(exc)) from None
+
+
+class StyleLoader(QgsProcessingLayerPostProcessorInterface):
+    """Load the ``.qml`` written beside an output and note its lineage in the layer metadata."""
+
+    def __init__(self, path: str) -> None:
+        super().__init__()
+        self.path = path
+
+    def postProcessLayer(self, layer, context, feedback):  # noqa: N802 (QGIS API name)
+        """Style the layer and add a history line pointing at its lineage."""
+        try:
+            if layer is None or not layer.isValid():
+                return
+            qml = style_path(self.path)
+            if os.path.exists(qml):
+                layer.loadNamedStyle(qml)
+                layer.triggerRepaint()
+            if os.path.exists(lineage_path(self.path)):
+                record = read_lineage(self.path)
+                metadata = layer.metadata()
+                metadata.addHistoryItem(
+                    f"{record['tool']['name']} {record['tool']['version']}, {record['job']}, "
+                    f"{record['created']}; lineage: {lineage_path(self.path)}")
+                metadata.setAbstract(f"{record['tree'].get('name', '')}\n\n{CAUTION}".strip())
+                layer.setMetadata(metadata)
+        finally:
+            _POST_PROCESSORS.discard(self)
+
+
+def style_on_load(context, output: str) -> None:
+    """Ask QGIS to style ``output`` with its ``.qml`` when it loads the layer at the end."""
+    if context.willLoadLayerOnCompletion(output):
+        processor = StyleLoader(output)
+        _POST_PROCESSORS.add(processor)
+        context.layerToLoadOnCompletionDetails(output).setPostProcessor(processor)
+
+
+class FavourAlgorithm(QgsProcessingAlgorithm):
+    """Base of Favour's algorithms: subclasses set ``NAME``, ``DISPLAY``, ``GROUP``, ``HELP``."""
+
+    NAME = ""
+    DISPLAY = ""
+    GROUP = "Favourability"
+    GROUP_ID = "favourability"
+    HELP = ""
+
+    def tr(self, text: str) -> str:
+        """Translate ``text`` in the algorithm's context."""
+        return QCoreApplication.translate(type(self).__name__, text)
+
+    def createInstance(self):  # noqa: N802 (QGIS API name)
+        """Return a fresh instance (QGIS runs each execution on its own)."""
+        return type(self)()
+
+    def name(self) -> str:
+        """Return the stable id within the provider."""
+        return self.NAME
+
+    def displayName(self) -> str:  # noqa: N802 (QGIS API name)
+        """Return the translated display name."""
+        return self.tr(self.DISPLAY)
+
+    def group(self) -> str:
+        """Return the translated group name."""
+        return self.tr(self.GROUP)
+
+    def groupId(self) -> str:  # noqa: N802 (QGIS API name)
+        """Return the stable group id."""
+        return self.GROUP_ID
+
+    def shortHelpString(self) -> str:  # noqa: N802 (QGIS API name)
+        """Return the help shown beside the dialog, with the usual caution."""
+        return self.tr(self.HELP) + "\n\n" + self.tr(CAUTION)

@@ -1,0 +1,55 @@
+"""``favour:evaluatetree``: a tree file evaluated into a favourability raster with lineage."""
+
+from __future__ import annotations
+
+from qgis.core import (
+    QgsProcessingOutputFile,
+    QgsProcessingOutputFolder,
+    QgsProcessingParameterFile,
+    QgsProcessingParameterFolderDestination,
+    QgsProcessingParameterRasterDestination,
+)
+
+from ..raster.engine import evaluate_tree_file
+from .base import FavourAlgorithm, ProcessingFeedback, run_guarded, style_on_load
+
+
+class EvaluateTreeAlgorithm(FavourAlgorithm):
+    """Evaluate a criteria-tree file block by block into a favourability raster."""
+
+    TREE = "TREE"
+    OUTPUT = "OUTPUT"
+    NODE_FOLDER = "NODE_FOLDER"
+    LINEAGE = "LINEAGE"
+
+    NAME = "evaluatetree"
+    DISPLAY = "Evaluate criteria tree"
+    HELP = ("Evaluates a Favour tree file (.json): each proxy layer is aligned to the tree's "
+            "grid, turned into membership μ by its leaf's function, and combined up the tree "
+            "by each node's operator. Writes the favourability raster (0 to 1), its style, and "
+            "a lineage record (<output>.lineage.json) with the tree, every input's SHA-256, "
+            "the grid, resampling, parameters and per-node statistics. Optionally writes one "
+            "raster per component (source, pathway, trap, preservation) into a folder.")
+
+    def initAlgorithm(self, config=None):  # noqa: N802 (QGIS API name)
+        """Declare the parameters and outputs."""
+        self.addParameter(QgsProcessingParameterFile(
+            self.TREE, self.tr("Tree file"), extension="json"))
+        self.addParameter(QgsProcessingParameterRasterDestination(
+            self.OUTPUT, self.tr("Favourability")))
+        self.addParameter(QgsProcessingParameterFolderDestination(
+            self.NODE_FOLDER, self.tr("Folder for component rasters"), optional=True,
+            createByDefault=False))
+        self.addOutput(QgsProcessingOutputFile(self.LINEAGE, self.tr("Lineage record")))
+        self.addOutput(QgsProcessingOutputFolder(self.NODE_FOLDER, self.tr("Component rasters")))
+
+    def processAlgorithm(self, parameters, context, feedback):  # noqa: N802 (QGIS API name)
+        """Read the parameters, evaluate the tree, return the outputs."""
+        tree_file = self.parameterAsFile(parameters, self.TREE, context)
+        output = self.parameterAsOutputLayer(parameters, self.OUTPUT, context)
+        node_folder = self.parameterAsString(parameters, self.NODE_FOLDER, context) or None
+        result = run_guarded(evaluate_tree_file, tree_file, output, node_folder,
+                             ProcessingFeedback(feedback))
+        style_on_load(context, result.output)
+        return {self.OUTPUT: result.output, self.LINEAGE: result.lineage_file,
+                self.NODE_FOLDER: node_folder}

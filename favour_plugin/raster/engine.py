@@ -1,0 +1,458 @@
+"""The one evaluation path: a criteria tree streamed block by block into rasters with lineage.
+
+:func:`evaluate_tree` is what the processing algorithms, the command line,
+the dock and the tests all call. It compiles the tree, builds the reference
+grid, aligns every proxy to it (lazily), streams the blocks through
+:meth:`~favour_plugin.core.tree.EvaluationPlan.evaluate_block` on a small pool
+of threads (GDAL and numpy release the GIL, so both cores work), writes the
+favourability and any node rasters to temporary files, and only on success
+renames them, writes their styles and the lineage record.
+
+:func:`reproduce` evaluates a lineage's tree again and compares every cell.
+"""
+
+from __future__ import annotations
+
+import os
+import platform
+import shutil
+import tempfile
+import threading
+from collections import deque
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass, field
+
+import numpy as np
+from osgeo import gdal
+
+from .. import about
+from ..core import lineage as lin
+from ..core.errors import GridError, GridMismatchError, LineageError, MissingInputError, NodataWarning
+from ..core.feedback import Feedback, ScaledFeedback
+from ..core.tree import PATH_SEPARATOR, EvaluationPlan, Tree
+from .blocks import BLOCK_COLS, BLOCK_ROWS, count_windows, iter_windows
+from .gdalenv import gdal_job
+from .grid import Grid
+from .sources import BlockReader, SourceSpec, open_raster, raster_source, read_window
+from .style import write_style
+from .vector import vector_source
+from .writer import RasterWriter, check_folder, check_writable
+
+DEFAULT_THREADS = max(1, min(2, os.cpu_count() or 1))
+
+
+@dataclass
+class EvaluationResult:
+    """What an evaluation wrote: the favourability raster, node rasters and the lineage."""
+
+    output: str
+    node_outputs: dict[str, str]
+    lineage_file: str
+    lineage: dict
+    warnings: list[dict] = field(default_factory=list)
+
+
+def reference_grid(tree: Tree, plan: EvaluationPlan) -> tuple[Grid, dict]:
+    """Return the tree's reference grid and a lineage note saying where it came from.
+
+    The grid is ``grid.reference`` (a raster), or ``grid.crs`` + ``grid.extent``
+    + ``grid.cell_size``, or else the grid of the first raster proxy.
+    """
+    spec = tree.grid or {}
+    if "reference" in spec:
+        path = str(tree.resolve(spec["reference"]))
+        ds = open_raster(path, "grid reference")
+        return Grid.from_dataset(ds, f"grid reference {path}"), {"source": "reference", "path": path}
+    if spec:
+        grid = Grid.from_spec(spec["crs"], spec["extent"], spec["cell_size"])
+        return grid, {"source": "tree file", "crs": spec["crs"], "extent": spec["extent"],
+                      "cell_size": spec["cell_size"]}
+    for leaf in plan.leaves:
+        if not leaf.proxy.is_vector:
+            path = str(leaf.proxy.resolve(tree.base_dir))
+            ds = open_raster(path, leaf.path)
+            return (Grid.from_dataset(ds, f"{leaf.path}: the layer {path}"),
+                    {"source": "first raster proxy", "node": leaf.path, "path": path})
+    raise GridError("the tree has no raster proxy to take a grid from; add 'grid' with "
+                    "'reference' or 'crs', 'extent' and 'cell_size' to the tree file")
+
+
+def node_file_name(path: str) -> str:
+    """Return a file name for a node's raster from its path (``source``, ``source-faults``)."""
+    parts = path.split(PATH_SEPARATOR)[1:] or path.split(PATH_SEPARATOR)
+    slug = "-".join("".join(ch if ch.isalnum() else "_" for ch in part.lower()).strip("_")
+                    for part in parts)
+    while "__" in slug:
+        slug = slug.replace("__", "_")
+    return (slug or "node") + ".tif"
+
+
+def _prepare_sources(tree: Tree, plan: EvaluationPlan, grid: Grid, workdir: str,
+                     feedback: Feedback, span: tuple[float, float]) -> dict[str, SourceSpec]:
+    """Open and align every leaf's proxy; vector proxies are measured onto the grid."""
+    sources: dict[str, SourceSpec] = {}
+    vectors = [leaf for leaf in plan.leaves if leaf.proxy.is_vector]
+    step = (span[1] - span[0]) / max(1, len(vectors))
+    done = 0
+    for leaf in plan.leaves:
+        feedback.check_cancelled()
+        proxy = leaf.proxy
+        path = str(proxy.resolve(tree.base_dir))
+        if proxy.is_vector:
+            start = span[0] + done * step
+            sources[leaf.path] = vector_source(path, proxy.layer, proxy.measure, proxy.field, grid,
+                                               workdir, leaf.path, feedback, (start, start + step))
+            done += 1
+        else:
+            resampling = proxy.resampling or ("nearest" if leaf.membership.categorical else "bilinear")
+            sources[leaf.path] = raster_source(path, proxy.band or 1, grid, resampling, leaf.path,
+                                               feedback, workdir)
+        feedback.set_progress(span[0] + done * step)
+    return sources
+
+
+def _input_files(path: str, spec: SourceSpec) -> list[str]:
+    """Return the files GDAL reads for an input, without statistics and overview sidecars."""
+    try:
+        ds = gdal.OpenEx(path, gdal.OF_READONLY | (gdal.OF_VECTOR if spec.record["kind"] == "vector"
+                                                   else gdal.OF_RASTER))
+        files = ds.GetFileList() or [path]
+    except RuntimeError:
+        files = [path]
+    return lin.relevant_files(files)
+
+
+class _Hasher(threading.Thread):
+    """Computes SHA-256 of the input files while the blocks stream."""
+
+    def __init__(self, files: list[str]) -> None:
+        super().__init__(daemon=True, name="favour-hash")
+        self.files = files
+        self.result: dict[str, dict] = {}
+        self.error: BaseException | None = None
+
+    def run(self) -> None:
+        try:
+            for entry in lin.describe_files(self.files):
+                self.result[entry["path"]] = entry
+        except OSError as exc:  # a file vanished mid-run; reported in the lineage check
+            self.error = exc
+
+
+def evaluate_tree(tree: Tree, output: str, node_folder: str | None = None,
+                  feedback: Feedback | None = None, grid: Grid | None = None,
+                  threads: int | None = None, job: str = "evaluate-tree",
+                  tree_file: str | None = None) -> EvaluationResult:
+    """Evaluate a criteria tree onto its grid and write the favourability raster with lineage.
+
+    Parameters
+    ----------
+    tree : Tree
+        The model; relative proxy paths resolve from ``tree.base_dir``.
+    output : str
+        The favourability GeoTIFF to write (``.tif``).
+    node_folder : str, optional
+        Folder for one raster per component and per node marked ``save_output``.
+    feedback : Feedback, optional
+        Progress, notes, warnings and cancel.
+    grid : Grid, optional
+        Evaluate on this grid instead of the tree's (a coarse preview, say).
+    threads : int, optional
+        Worker threads for the block pass (default: up to 2).
+    job : str
+        Name of the job in the lineage.
+    tree_file : str, optional
+        The tree file the tree came from, hashed into the lineage.
+
+    Returns
+    -------
+    EvaluationResult
+
+    Raises
+    ------
+    FavourError
+        A tree problem, a missing or unusable input, an output that cannot be
+        written, or a cancel. Nothing is left under the final names.
+    """
+    feedback = feedback or Feedback()
+    threads = threads or DEFAULT_THREADS
+    plan = tree.compile()
+    output = os.path.abspath(output)
+    check_writable(output)
+    if node_folder:
+        node_folder = os.path.abspath(node_folder)
+        check_folder(node_folder)
+    workdir = tempfile.mkdtemp(prefix=".favour-work-", dir=os.path.dirname(output))
+    writers: dict[str, RasterWriter] = {}
+    try:
+        with gdal_job():
+            return _evaluate(tree, plan, output, node_folder, feedback, grid, threads, job,
+                             tree_file, workdir, writers)
+    except BaseException:
+        for writer in writers.values():
+            writer.abort()
+        raise
+    finally:
+        shutil.rmtree(workdir, ignore_errors=True)
+
+
+def _evaluate(tree, plan, output, node_folder, feedback, grid, threads, job, tree_file,
+              workdir, writers) -> EvaluationResult:
+    """Body of :func:`evaluate_tree`, run inside the GDAL job settings."""
+    created = lin.utc_now()
+    if grid is None:
+        grid, grid_note = reference_grid(tree, plan)
+    else:
+        grid_note = {"source": "given by the caller"}
+    feedback.info(f"grid: {grid.describe()}")
+    sources = _prepare_sources(tree, plan, grid, workdir, feedback, (0.0, 0.15))
+
+    files = []
+    if tree_file:
+        files.append(os.path.abspath(tree_file))
+    if grid_note.get("source") == "reference":
+        files.append(grid_note["path"])
+    input_files = {}
+    for leaf in plan.leaves:
+        path = str(leaf.proxy.resolve(tree.base_dir))
+        input_files[leaf.path] = _input_files(path, sources[leaf.path])
+        files.extend(input_files[leaf.path])
+    hasher = _Hasher(list(dict.fromkeys(files)))
+    hasher.start()
+
+    saved = list(plan.saved) if node_folder else []
+    writers[plan.root_path] = RasterWriter(output, grid, plan.root_path)
+    node_outputs = {}
+    for path in saved:
+        node_outputs[path] = os.path.join(node_folder, node_file_name(path))
+        writers[path] = RasterWriter(node_outputs[path], grid, path)
+
+    stats = _stream(plan, sources, grid, writers, feedback, threads, (0.15, 0.97))
+    hasher.join()
+    if hasher.error is not None:
+        raise MissingInputError(f"an input file could not be read while hashing it: {hasher.error}")
+
+    root_stats = stats[plan.root_path]
+    if root_stats["valid_cells"] == 0:
+        feedback.warning("the favourability has no valid cell: every cell is nodata in some "
+                         "proxy that the tree propagates; check the proxies' extents and nodata",
+                         NodataWarning)
+    for leaf in plan.leaves:
+        if stats[leaf.path]["valid_cells"] == 0:
+            feedback.warning(f"{leaf.path}: the proxy has no valid cell on the grid", NodataWarning)
+
+    record = {
+        "format": lin.FORMAT, "version": lin.VERSION, "job": job, "created": created,
+        "tool": {"name": about.NAME, "version": about.VERSION, "python": platform.python_version(),
+                 "numpy": np.__version__, "gdal": gdal.__version__},
+        "host": platform.platform(),
+        "tree": tree.to_dict(), "base_dir": str(tree.base_dir) if tree.base_dir else None,
+        "tree_file": hasher.result.get(os.path.abspath(tree_file)) if tree_file else None,
+        "root": plan.root_path,
+        "grid": {**grid.to_dict(), "from": grid_note},
+        "inputs": [{"node": leaf.path, **sources[leaf.path].record,
+                    "files": [hasher.result[f] for f in input_files[leaf.path]]}
+                   for leaf in plan.leaves],
+        "parameters": {"block": [BLOCK_ROWS, BLOCK_COLS], "threads": threads,
+                       "dtype": "float32", "nodata_value": -9999.0,
+                       "arithmetic": "float64 within each block"},
+        "nodata_policy": {step.path: step.operator.nodata for step in plan.steps},
+        "statistics": stats,
+        "outputs": {"favourability": output, "nodes": node_outputs},
+        "lineage_file": os.path.basename(str(lin.lineage_path(output))),
+        "warnings": list(feedback.warnings),
+        "seed": None,
+        "caution": lin.CAUTION,
+    }
+    for path, writer in writers.items():
+        writer.set_metadata(lin.summary_metadata(record, path), stats[path])
+    feedback.check_cancelled()
+    for path, writer in writers.items():
+        write_style(writer.commit())
+    lineage_file = lin.write_lineage(record, output)
+    feedback.set_progress(1.0)
+    return EvaluationResult(output, node_outputs, str(lineage_file), record, list(feedback.warnings))
+
+
+def _stream(plan: EvaluationPlan, sources: dict[str, SourceSpec], grid: Grid,
+            writers: dict[str, RasterWriter], feedback: Feedback, threads: int,
+            span: tuple[float, float]) -> dict[str, dict]:
+    """Read, evaluate and write every block; return per-node statistics.
+
+    Workers each hold their own GDAL handles (a handle must not be shared
+    between threads) and return the block's μ and statistics; the calling
+    thread writes blocks in order, so the output never depends on timing.
+    """
+    keep = list(writers) + [leaf.path for leaf in plan.leaves]
+    local = threading.local()
+    readers: list[BlockReader] = []
+    readers_lock = threading.Lock()
+
+    def work(window):
+        reader = getattr(local, "reader", None)
+        if reader is None:
+            reader = local.reader = BlockReader()
+            with readers_lock:
+                readers.append(reader)
+        by_key: dict[str, np.ndarray] = {}
+        values = {}
+        for leaf in plan.leaves:
+            spec = sources[leaf.path]
+            if spec.key not in by_key:
+                by_key[spec.key] = reader.read(spec, window)
+            values[leaf.path] = by_key[spec.key]
+        results = plan.evaluate_block(values, keep)
+        block_stats = {path: lin.NodeStatistics.of_block(array) for path, array in results.items()}
+        return window, {path: results[path] for path in writers}, block_stats
+
+    total = count_windows(grid.width, grid.height)
+    totals = {path: lin.NodeStatistics() for path in keep}
+    pending: deque = deque()
+    windows = iter_windows(grid.width, grid.height)
+    done = 0
+    pool = ThreadPoolExecutor(max_workers=threads, thread_name_prefix="favour-block")
+    try:
+        while True:
+            while len(pending) < 2 * threads:
+                window = next(windows, None)
+                if window is None:
+                    break
+                pending.append(pool.submit(work, window))
+            if not pending:
+                break
+            feedback.check_cancelled()
+            window, arrays, block_stats = pending.popleft().result()
+            for path, array in arrays.items():
+                writers[path].write(window, array)
+            for path, s in block_stats.items():
+                totals[path].merge(s)
+            done += 1
+            feedback.set_progress(span[0] + (span[1] - span[0]) * done / total)
+    finally:
+        for future in pending:
+            future.cancel()
+        pool.shutdown(wait=True)
+        for reader in readers:
+            reader.close()
+    return {path: s.to_dict() for path, s in totals.items()}
+
+
+def evaluate_tree_file(tree_file: str, output: str, node_folder: str | None = None,
+                       feedback: Feedback | None = None, threads: int | None = None
+                       ) -> EvaluationResult:
+    """Load a tree file and evaluate it (see :func:`evaluate_tree`)."""
+    tree = Tree.load(tree_file)
+    return evaluate_tree(tree, output, node_folder, feedback, threads=threads, tree_file=tree_file)
+
+
+@dataclass
+class Reproduction:
+    """The outcome of evaluating a lineage's tree again and comparing every cell."""
+
+    output: str
+    identical: bool
+    cells: int
+    differing_cells: int
+    nodata_mismatches: int
+    max_abs_difference: float
+    changed_inputs: list[dict]
+    rebuilt: bool = False
+
+    def summary(self) -> str:
+        """Return a few lines saying whether the cells are identical and what changed."""
+        lines = []
+        if self.rebuilt:
+            lines.append(f"{self.output} was missing; rebuilt it from its lineage")
+        elif self.identical:
+            lines.append(f"identical: all {self.cells} cells of {self.output} are reproduced exactly")
+        else:
+            lines.append(
+                f"different: {self.differing_cells} of {self.cells} cells differ "
+                f"(largest difference {self.max_abs_difference:.6g}, "
+                f"{self.nodata_mismatches} differ in nodata)")
+        for change in self.changed_inputs:
+            what = "is missing" if change["change"] == "missing" else "has changed since the run"
+            lines.append(f"input {change['path']} ({change['node'] or 'tree file'}) {what}")
+        if not self.changed_inputs:
+            lines.append("every input file has the size and SHA-256 recorded in the lineage")
+        return "\n".join(lines)
+
+
+def reproduce(output: str, feedback: Feedback | None = None, threads: int | None = None
+              ) -> Reproduction:
+    """Evaluate the tree recorded in ``output``'s lineage again and compare every cell.
+
+    Inputs whose size or SHA-256 differ from the lineage are named. If the
+    output itself is missing it is rebuilt from the lineage.
+
+    Raises
+    ------
+    LineageError
+        No lineage, or one that cannot be read.
+    FavourError
+        The evaluation itself failed (a missing input, say).
+    """
+    feedback = feedback or Feedback()
+    output = os.path.abspath(output)
+    record = lin.read_lineage(output)
+    changes = lin.changed_inputs(record)
+    tree_doc = record.get("tree")
+    if not isinstance(tree_doc, dict):
+        raise LineageError(f"the lineage of {output} holds no tree")
+    tree = Tree.from_dict(tree_doc, base_dir=record.get("base_dir"))
+    grid = Grid.from_dict(record["grid"])
+    if record.get("tree_file"):
+        tree_path = record["tree_file"]["path"]
+        if not os.path.isfile(tree_path) or lin.file_digest(tree_path) != record["tree_file"]["sha256"]:
+            feedback.info(f"the tree file {tree_path} has changed since the run; "
+                          "the lineage's own copy of the tree is used")
+    if not os.path.exists(output):
+        evaluate_tree(tree, output, None, feedback, grid=grid, threads=threads, job=record["job"])
+        return Reproduction(output, False, grid.cells, 0, 0, 0.0, changes, rebuilt=True)
+    folder = tempfile.mkdtemp(prefix=".favour-reproduce-", dir=os.path.dirname(output))
+    try:
+        again = os.path.join(folder, "again.tif")
+        evaluate_tree(tree, again, None, ScaledFeedback(feedback, 0.0, 0.9), grid=grid,
+                      threads=threads, job=record["job"])
+        with gdal_job():
+            comparison = compare_rasters(output, again, feedback)
+    finally:
+        shutil.rmtree(folder, ignore_errors=True)
+    feedback.set_progress(1.0)
+    return Reproduction(output, comparison["differing_cells"] == 0, comparison["cells"],
+                        comparison["differing_cells"], comparison["nodata_mismatches"],
+                        comparison["max_abs_difference"], changes)
+
+
+def compare_rasters(first: str, second: str, feedback: Feedback | None = None) -> dict:
+    """Compare two single-band rasters on the same grid cell by cell, block by block.
+
+    Returns
+    -------
+    dict
+        ``cells``, ``differing_cells`` (value or nodata differs),
+        ``nodata_mismatches`` and ``max_abs_difference`` over cells valid in both.
+    """
+    feedback = feedback or Feedback()
+    a_ds, b_ds = open_raster(first, "first raster"), open_raster(second, "second raster")
+    a_grid = Grid.from_dataset(a_ds, first)
+    if not a_grid.same_as(Grid.from_dataset(b_ds, second)):
+        raise GridMismatchError(f"{first} and {second} are on different grids")
+    a_band, b_band = a_ds.GetRasterBand(1), b_ds.GetRasterBand(1)
+    differing = mismatched = 0
+    largest = 0.0
+    total = count_windows(a_grid.width, a_grid.height)
+    for i, window in enumerate(iter_windows(a_grid.width, a_grid.height)):
+        feedback.check_cancelled()
+        a = read_window(a_band, window, a_band.GetNoDataValue())
+        b = read_window(b_band, window, b_band.GetNoDataValue())
+        a_nan, b_nan = np.isnan(a), np.isnan(b)
+        both = ~a_nan & ~b_nan
+        mismatched += int(np.count_nonzero(a_nan != b_nan))
+        diff = np.abs(a[both] - b[both])
+        differing += int(np.count_nonzero(diff)) + int(np.count_nonzero(a_nan != b_nan))
+        if diff.size:
+            largest = max(largest, float(diff.max()))
+        feedback.set_progress(0.9 + 0.1 * (i + 1) / total)
+    return {"cells": a_grid.cells, "differing_cells": differing, "nodata_mismatches": mismatched,
+            "max_abs_difference": largest}
