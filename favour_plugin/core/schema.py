@@ -17,7 +17,7 @@ import math
 import re
 from collections.abc import Iterator, Mapping
 from dataclasses import dataclass
-from functools import lru_cache
+from functools import cache
 from pathlib import Path
 
 SCHEMA_DIR = Path(__file__).resolve().parent.parent / "schema"
@@ -153,7 +153,7 @@ class Validator:
             yield SchemaIssue(path, f"must have at most {schema['maxItems']} items, got {len(value)}")
         if "items" in schema:
             for i, item in enumerate(value):
-                yield from self._validate(item, schema["items"], path + (i,))
+                yield from self._validate(item, schema["items"], (*path, i))
 
     def _object(self, value, schema, path):
         for key in schema.get("required", ()):
@@ -164,9 +164,9 @@ class Validator:
         properties = schema.get("properties", {})
         for key, item in value.items():
             if key in properties:
-                yield from self._validate(item, properties[key], path + (key,))
+                yield from self._validate(item, properties[key], (*path, key))
             elif isinstance(schema.get("additionalProperties"), Mapping):
-                yield from self._validate(item, schema["additionalProperties"], path + (key,))
+                yield from self._validate(item, schema["additionalProperties"], (*path, key))
             elif schema.get("additionalProperties") is False:
                 yield SchemaIssue(path, f"unexpected entry '{key}'")
             if "propertyNames" in schema:
@@ -174,7 +174,7 @@ class Validator:
                     yield SchemaIssue(path, f"key {issue.message}")
 
 
-@lru_cache(maxsize=None)
+@cache
 def load_validator(name: str) -> Validator:
     """Return the validator for the schema file ``schema/<name>``."""
     with open(SCHEMA_DIR / name, encoding="utf-8") as handle:

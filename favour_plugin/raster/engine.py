@@ -267,7 +267,7 @@ def _evaluate(tree, plan, output, node_folder, feedback, grid, threads, job, tre
     for path, writer in writers.items():
         writer.set_metadata(lin.summary_metadata(record, path), stats[path])
     feedback.check_cancelled()
-    for path, writer in writers.items():
+    for writer in writers.values():
         write_style(writer.commit())
     lineage_file = lin.write_lineage(record, output)
     feedback.set_progress(1.0)

@@ -170,7 +170,7 @@ def raster_source(path: str, band: int, grid: Grid, resampling: str, name: str,
 
 
 def _same_lattice(src: Grid, grid: Grid) -> bool:
-    """True if ``src`` has the grid's cell size and its cell edges fall on the grid's."""
+    """Return True if ``src`` has the grid's cell size and its cell edges fall on the grid's."""
     if abs(src.cell_x - grid.cell_x) > 1e-9 * grid.cell_x or \
             abs(src.cell_y - grid.cell_y) > 1e-9 * grid.cell_y:
         return False
