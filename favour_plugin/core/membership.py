@@ -46,7 +46,8 @@ def linear(x: np.ndarray, lower: float, upper: float) -> np.ndarray:
     The linear fuzzy membership of Bonham-Carter (1994, ch. 9) [BC94]_.
     """
     x = np.asarray(x, dtype=np.float64)
-    return np.clip((x - lower) / (upper - lower), 0.0, 1.0)
+    with np.errstate(over="ignore"):  # a very steep ramp overflows to ±inf, clipped to 0 or 1
+        return np.clip((x - lower) / (upper - lower), 0.0, 1.0)
 
 
 def logistic(x: np.ndarray, midpoint: float, slope: float) -> np.ndarray:
@@ -127,7 +128,7 @@ def trapezoid(x: np.ndarray, a: float, b: float, c: float, d: float) -> np.ndarr
     practice (Zimmermann 2001) [Zim01]_, as scikit-fuzzy's ``trapmf``.
     """
     x = np.asarray(x, dtype=np.float64)
-    with np.errstate(divide="ignore", invalid="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         rise = np.ones_like(x) if b == a else (x - a) / (b - a)
         fall = np.ones_like(x) if d == c else (d - x) / (d - c)
     mu = np.clip(np.minimum(rise, fall), 0.0, 1.0)

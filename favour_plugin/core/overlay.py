@@ -136,10 +136,15 @@ def fuzzy_gamma(children: Sequence[np.ndarray], gamma: float, nodata: str = "pro
 
     For two inputs 0.8 and 0.2 the result lies between them only for about
     0.14 < γ < 0.97 (Bonham-Carter 1994, as quoted by Carranza 2009) [Car09]_.
-    0⁰ is taken as 1, so γ = 1 returns the sum exactly and γ = 0 the product.
+    γ = 0 and γ = 1 return the product and the sum exactly.
     """
     if isinstance(gamma, bool) or not isinstance(gamma, (int, float)) or not 0.0 <= gamma <= 1.0:
         raise ParameterError(f"gamma must be a number in [0, 1], got {gamma!r}")
+    # The limits are returned exactly: numpy's vectorised pow is not exact to the last bit.
+    if gamma == 0.0:
+        return fuzzy_product(children, nodata)
+    if gamma == 1.0:
+        return fuzzy_sum(children, nodata)
     product = fuzzy_product(children, nodata)
     total = fuzzy_sum(children, nodata)
     return np.power(total, gamma) * np.power(product, 1.0 - gamma)

@@ -33,7 +33,7 @@ from ..core.tree import PATH_SEPARATOR, EvaluationPlan, Tree
 from .blocks import BLOCK_COLS, BLOCK_ROWS, count_windows, iter_windows
 from .gdalenv import gdal_job
 from .grid import Grid
-from .sources import BlockReader, SourceSpec, open_raster, raster_source, read_window
+from .sources import BlockReader, SourceSpec, open_raster, raster_source
 from .style import write_style
 from .vector import vector_source
 from .writer import RasterWriter, check_folder, check_writable
@@ -438,14 +438,17 @@ def compare_rasters(first: str, second: str, feedback: Feedback | None = None) -
     a_grid = Grid.from_dataset(a_ds, first)
     if not a_grid.same_as(Grid.from_dataset(b_ds, second)):
         raise GridMismatchError(f"{first} and {second} are on different grids")
-    a_band, b_band = a_ds.GetRasterBand(1), b_ds.GetRasterBand(1)
+    a_spec = SourceSpec("a", first, 1, a_ds.GetRasterBand(1).GetNoDataValue(), 1.0, 0.0, {})
+    b_spec = SourceSpec("b", second, 1, b_ds.GetRasterBand(1).GetNoDataValue(), 1.0, 0.0, {})
+    a_ds = b_ds = None
+    reader = BlockReader()
     differing = mismatched = 0
     largest = 0.0
     total = count_windows(a_grid.width, a_grid.height)
     for i, window in enumerate(iter_windows(a_grid.width, a_grid.height)):
         feedback.check_cancelled()
-        a = read_window(a_band, window, a_band.GetNoDataValue())
-        b = read_window(b_band, window, b_band.GetNoDataValue())
+        a = reader.read(a_spec, window)
+        b = reader.read(b_spec, window)
         a_nan, b_nan = np.isnan(a), np.isnan(b)
         both = ~a_nan & ~b_nan
         mismatched += int(np.count_nonzero(a_nan != b_nan))

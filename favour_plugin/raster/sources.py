@@ -68,7 +68,7 @@ def read_window(band: gdal.Band, window: Window, nodata: float | None, scale: fl
     return values
 
 
-def _overlap_fraction(ds: gdal.Dataset, src_grid: Grid, grid: Grid) -> float:
+def _overlap_fraction(src_grid: Grid, grid: Grid) -> float:
     """Return the fraction of the reference grid's extent that the source covers."""
     sxmin, symin, sxmax, symax = src_grid.extent
     if not grid.same_crs(src_grid.crs_wkt):
@@ -117,8 +117,9 @@ def raster_source(path: str, band: int, grid: Grid, resampling: str, name: str,
     nodata = rb.GetNoDataValue()
     scale = rb.GetScale() or 1.0
     offset = rb.GetOffset() or 0.0
-    record = {"kind": "raster", "path": path, "band": band,
-              "data_type": gdal.GetDataTypeName(rb.DataType), "nodata": nodata,
+    data_type = gdal.GetDataTypeName(rb.DataType)
+    rb = None  # a band must never outlive its dataset, whatever error unwinds below
+    record = {"kind": "raster", "path": path, "band": band, "data_type": data_type, "nodata": nodata,
               "grid": {"crs": crs_label(src_grid.srs), "cell_size": [src_grid.cell_x, src_grid.cell_y],
                        "extent": list(src_grid.extent), "width": src_grid.width,
                        "height": src_grid.height}}
@@ -128,7 +129,7 @@ def raster_source(path: str, band: int, grid: Grid, resampling: str, name: str,
         record["alignment"] = {"resampled": False}
         return SourceSpec(f"{path}|{band}", path, band, nodata, scale, offset, record)
 
-    coverage = _overlap_fraction(ds, src_grid, grid)
+    coverage = _overlap_fraction(src_grid, grid)
     if coverage <= 0:
         raise GridError(f"{name}: the layer {path} ({src_grid.describe()}) does not overlap "
                         f"the grid ({grid.describe()})")
@@ -198,5 +199,8 @@ class BlockReader:
         return read_window(handle[1], window, spec.nodata, spec.scale, spec.offset)
 
     def close(self) -> None:
-        """Close every dataset this reader opened."""
-        self._handles.clear()
+        """Close every dataset this reader opened (each band before its dataset)."""
+        while self._handles:
+            _, (ds, band) = self._handles.popitem()
+            del band
+            del ds

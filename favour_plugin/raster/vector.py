@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import hashlib
 import os
+from dataclasses import dataclass
 
 from osgeo import gdal, ogr, osr
 
@@ -31,8 +32,33 @@ from .sources import SourceSpec
 _WORK_OPTIONS = ["TILED=YES", "BLOCKXSIZE=256", "BLOCKYSIZE=256", "BIGTIFF=IF_SAFER"]
 
 
-def _open_layer(path: str, layer_name: str | None, name: str) -> tuple[gdal.Dataset, ogr.Layer]:
-    """Open a vector data source and pick the layer, naming the problem when it cannot."""
+@dataclass(frozen=True)
+class LayerFacts:
+    """What a vector proxy needs to know about its layer, read once with the file then closed.
+
+    Holding no GDAL object means no layer can outlive its data source (which
+    crashes GDAL's Python bindings) however an error unwinds.
+    """
+
+    name: str
+    count: int
+    srs_wkt: str | None
+    geometry: str
+    polygons: bool
+    extent: tuple[float, float, float, float]
+    fields: dict[str, int]
+
+
+def _undefined(srs: osr.SpatialReference | None) -> bool:
+    """Return True for no CRS or the placeholder some formats store ("Undefined ... SRS")."""
+    if srs is None:
+        return True
+    name = (srs.GetName() or "").lower()
+    return srs.GetAuthorityName(None) is None and name.startswith("undefined")
+
+
+def read_layer_facts(path: str, layer_name: str | None, name: str) -> LayerFacts:
+    """Open a vector data source, pick the layer and read its facts, naming any problem."""
     if not os.path.exists(path):
         raise MissingInputError(f"{name}: the layer file {path} does not exist")
     try:
@@ -49,7 +75,21 @@ def _open_layer(path: str, layer_name: str | None, name: str) -> tuple[gdal.Data
         layer_name = names[0]
     if layer_name not in names:
         raise InputError(f"{name}: {path} has no layer {layer_name!r}; it has {', '.join(names)}")
-    return ds, ds.GetLayerByName(layer_name)
+    layer = ds.GetLayerByName(layer_name)
+    srs = layer.GetSpatialRef()
+    definition = layer.GetLayerDefn()
+    count = layer.GetFeatureCount()
+    facts = LayerFacts(
+        name=layer_name, count=count,
+        srs_wkt=None if _undefined(srs) else srs.ExportToWkt(),
+        geometry=ogr.GeometryTypeToName(layer.GetGeomType()),
+        polygons=ogr.GT_Flatten(layer.GetGeomType()) in (ogr.wkbPolygon, ogr.wkbMultiPolygon),
+        extent=layer.GetExtent() if count else (0.0, 0.0, 0.0, 0.0),
+        fields={definition.GetFieldDefn(i).GetName(): definition.GetFieldDefn(i).GetType()
+                for i in range(definition.GetFieldCount())})
+    srs = definition = layer = None  # children of the data source go first
+    ds = None
+    return facts
 
 
 def _progress_callback(feedback: Feedback, start: float, end: float):
@@ -101,19 +141,18 @@ def vector_source(path: str, layer_name: str | None, measure: str, field_name: s
         Missing file, unreadable layer, no features, no CRS, no feature on the
         grid, a non-numeric field, or a cancel.
     """
-    ds, layer = _open_layer(path, layer_name, name)
-    layer_label = f"{os.path.basename(path)}:{layer.GetName()}"
-    count = layer.GetFeatureCount()
-    if count == 0:
+    facts = read_layer_facts(path, layer_name, name)
+    layer_label = f"{os.path.basename(path)}:{facts.name}"
+    if facts.count == 0:
         raise InputError(f"{name}: the vector layer {layer_label} has no features")
-    srs = layer.GetSpatialRef()
-    if srs is None:
+    if facts.srs_wkt is None:
         raise GridError(f"{name}: the vector layer {layer_label} has no CRS; assign one first")
+    srs = osr.SpatialReference()
+    srs.ImportFromWkt(facts.srs_wkt)
     srs.SetAxisMappingStrategy(osr.OAMS_TRADITIONAL_GIS_ORDER)
-    _check_features_on_grid(layer, srs, grid, name, layer_label)
-    record = {"kind": "vector", "path": path, "layer": layer.GetName(), "measure": measure,
-              "features": count, "crs": crs_label(srs),
-              "geometry": ogr.GeometryTypeToName(layer.GetGeomType()),
+    _check_features_on_grid(facts.extent, srs, grid, name, layer_label)
+    record = {"kind": "vector", "path": path, "layer": facts.name, "measure": measure,
+              "features": facts.count, "crs": crs_label(srs), "geometry": facts.geometry,
               "reprojected": not bool(srs.IsSame(grid.srs))}
     if record["reprojected"]:
         feedback.warning(f"{name}: {layer_label} is in {crs_label(srs)}; its features are "
@@ -123,11 +162,11 @@ def vector_source(path: str, layer_name: str | None, measure: str, field_name: s
     start, end = progress_span
     mid = start + 0.3 * (end - start)
     if measure == "distance":
-        target = _distance_grid(path, layer.GetName(), grid, base, feedback, (start, mid, end))
+        target = _distance_grid(path, facts.name, grid, base, feedback, (start, mid, end))
         record["method"] = ("GDAL ComputeProximity (DISTUNITS=GEO) on an ALL_TOUCHED "
                             "rasterisation; map units of the grid CRS")
     elif measure == "attribute":
-        target = _attribute_grid(path, layer, field_name, grid, base, feedback, (start, end), name)
+        target = _attribute_grid(path, facts, field_name, grid, base, feedback, (start, end), name)
         record["field"] = field_name
         record["method"] = "GDAL Rasterize of the field; cells not covered are nodata"
     else:
@@ -136,10 +175,10 @@ def vector_source(path: str, layer_name: str | None, measure: str, field_name: s
     return SourceSpec(key, target, 1, float("nan"), 1.0, 0.0, record)
 
 
-def _check_features_on_grid(layer: ogr.Layer, srs: osr.SpatialReference, grid: Grid,
+def _check_features_on_grid(extent, srs: osr.SpatialReference, grid: Grid,
                             name: str, label: str) -> None:
-    """Raise if no feature's envelope overlaps the grid's extent."""
-    xmin, xmax, ymin, ymax = layer.GetExtent()
+    """Raise if the layer's envelope (OGR order: xmin, xmax, ymin, ymax) misses the grid."""
+    xmin, xmax, ymin, ymax = extent
     if not srs.IsSame(grid.srs):
         transform = osr.CoordinateTransformation(srs, grid.srs)
         xmin, ymin, xmax, ymax = transform.TransformBounds(xmin, ymin, xmax, ymax, 21)
@@ -180,24 +219,19 @@ def _distance_grid(path: str, layer_name: str, grid: Grid, base: str, feedback: 
     return target
 
 
-def _attribute_grid(path: str, layer: ogr.Layer, field_name: str, grid: Grid, base: str,
+def _attribute_grid(path: str, facts: LayerFacts, field_name: str, grid: Grid, base: str,
                     feedback: Feedback, span: tuple[float, float], name: str) -> str:
     """Burn a numeric field into the grid; return the grid's path."""
-    definition = layer.GetLayerDefn()
-    index = definition.GetFieldIndex(field_name)
-    if index < 0:
-        fields = [definition.GetFieldDefn(i).GetName() for i in range(definition.GetFieldCount())]
-        raise InputError(f"{name}: layer {layer.GetName()} has no field {field_name!r}; "
-                         f"it has {', '.join(fields) or 'no fields'}")
-    kind = definition.GetFieldDefn(index).GetType()
-    if kind not in (ogr.OFTInteger, ogr.OFTInteger64, ogr.OFTReal):
-        raise InputError(f"{name}: field {field_name!r} of layer {layer.GetName()} is not numeric")
-    polygons = ogr.GT_Flatten(layer.GetGeomType()) in (ogr.wkbPolygon, ogr.wkbMultiPolygon)
+    if field_name not in facts.fields:
+        raise InputError(f"{name}: layer {facts.name} has no field {field_name!r}; "
+                         f"it has {', '.join(facts.fields) or 'no fields'}")
+    if facts.fields[field_name] not in (ogr.OFTInteger, ogr.OFTInteger64, ogr.OFTReal):
+        raise InputError(f"{name}: field {field_name!r} of layer {facts.name} is not numeric")
     target = base + "-attribute.tif"
     ds = _empty_grid(target, grid, gdal.GDT_Float64, float("nan"))
     ds.GetRasterBand(1).Fill(float("nan"))
-    _run(lambda: gdal.Rasterize(ds, path, layers=[layer.GetName()], attribute=field_name,
-                                allTouched=not polygons, callback=_progress_callback(feedback, *span)),
+    _run(lambda: gdal.Rasterize(ds, path, layers=[facts.name], attribute=field_name,
+                                allTouched=not facts.polygons, callback=_progress_callback(feedback, *span)),
          feedback, f"rasterising {path}")
     ds = None
     return target

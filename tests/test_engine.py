@@ -1,0 +1,370 @@
+"""The evaluation engine on small rasters: numbers, alignment, lineage, reproduction, cancel."""
+
+import json
+import os
+import shutil
+import subprocess
+
+import numpy as np
+import pytest
+from osgeo import gdal
+
+from favour_plugin.core.errors import (
+    AlignmentWarning,
+    CancelledError,
+    GridError,
+    InputError,
+    LineageError,
+    MissingInputError,
+    NodataWarning,
+)
+from favour_plugin.core.feedback import Feedback
+from favour_plugin.core.tree import Tree
+from favour_plugin.raster.blocks import iter_windows
+from favour_plugin.raster.engine import evaluate_tree, evaluate_tree_file, node_file_name, reproduce
+from tests.helpers import ORIGIN, leaf, read_raster, tree_doc, write_raster, write_tree, write_vector
+
+RNG = np.random.default_rng(11)
+
+
+class Recorder(Feedback):
+    """Feedback that records progress and can cancel after a number of progress reports."""
+
+    def __init__(self, cancel_after=None):
+        super().__init__()
+        self.progress = []
+        self.cancel_after = cancel_after
+
+    def set_progress(self, fraction):
+        """Record the fraction."""
+        self.progress.append(fraction)
+
+    def is_cancelled(self):
+        """Cancel once enough progress was reported."""
+        return self.cancel_after is not None and len(self.progress) >= self.cancel_after
+
+
+@pytest.fixture()
+def layers(tmp_path):
+    """Three aligned rasters and a vector layer on a 300 x 260 grid of 100 m cells."""
+    shape = (260, 300)
+    mag = RNG.normal(100, 30, shape).astype(np.float32)
+    mag[:4, :4] = -9999
+    litho = RNG.integers(1, 6, shape).astype(np.uint8)
+    grav = RNG.uniform(-5, 5, shape).astype(np.float32)
+    paths = {
+        "mag": write_raster(tmp_path / "mag.tif", mag, nodata=-9999),
+        "litho": write_raster(tmp_path / "litho.tif", litho, nodata=0),
+        "grav": write_raster(tmp_path / "grav.tif", grav),
+        "faults": write_vector(tmp_path / "faults.gpkg", [
+            f"LINESTRING ({ORIGIN[0] + 5000} {ORIGIN[1]}, {ORIGIN[0] + 9000} {ORIGIN[1] - 26000})"],
+            layer="faults"),
+    }
+    return tmp_path, paths, {"mag": mag, "litho": litho, "grav": grav}
+
+
+def three_leaf_tree(paths, operator=None):
+    """A root over a linear magnetic leaf, a categories lithology leaf and a gaussian gravity leaf."""
+    return tree_doc([
+        leaf("Mag", paths["mag"], {"type": "linear", "lower": 60, "upper": 160}),
+        leaf("Host", paths["litho"], {"type": "categories", "scores": {"3": 0.9, "5": 0.6}, "default": 0.1}),
+        leaf("Grav", paths["grav"], {"type": "gaussian", "centre": 1.0, "spread": 2.0}),
+    ], operator or {"type": "gamma", "gamma": 0.75})
+
+
+def expected_three_leaf(arrays, gamma=0.75):
+    """The three-leaf tree computed directly with numpy from the same arrays."""
+    mag = arrays["mag"].astype(np.float64)
+    mag[mag == -9999] = np.nan
+    mu1 = np.clip((mag - 60) / 100, 0, 1)
+    litho = arrays["litho"].astype(np.float64)
+    mu2 = np.where(litho == 3, 0.9, np.where(litho == 5, 0.6, 0.1))
+    mu3 = np.exp(-((arrays["grav"].astype(np.float64) - 1.0) ** 2) / 8.0)
+    product = mu1 * mu2 * mu3
+    total = 1 - (1 - mu1) * (1 - mu2) * (1 - mu3)
+    return (total ** gamma * product ** (1 - gamma)).astype(np.float32)
+
+
+def test_evaluation_matches_direct_formula_and_writes_lineage(layers):
+    """Cells equal the membership and gamma formulas applied directly; lineage and style exist."""
+    folder, paths, arrays = layers
+    tree = Tree.from_dict(three_leaf_tree(paths))
+    out = folder / "out" / "fav.tif"
+    result = evaluate_tree(tree, str(out))
+    got = read_raster(out)
+    np.testing.assert_allclose(got, expected_three_leaf(arrays), rtol=2e-7, atol=1e-7, equal_nan=True)
+    assert np.isnan(got[:4, :4]).all() and np.isfinite(got[4:, 4:]).all()
+    assert (folder / "out" / "fav.qml").exists()
+    record = json.loads((folder / "out" / "fav.tif.lineage.json").read_text())
+    assert record == result.lineage
+    stats = record["statistics"]["Favourability"]
+    assert stats["valid_cells"] == np.isfinite(got).sum()
+    assert stats["mean"] == pytest.approx(np.nanmean(got), rel=1e-6)
+    assert stats["max"] == pytest.approx(np.nanmax(got), rel=1e-6)
+
+
+def test_lineage_checksums_match_sha256sum(layers):
+    """Each input's SHA-256 in the lineage equals what coreutils' sha256sum prints."""
+    folder, paths, _ = layers
+    result = evaluate_tree(Tree.from_dict(three_leaf_tree(paths)), str(folder / "fav.tif"))
+    for entry in result.lineage["inputs"]:
+        (f,) = entry["files"]
+        printed = subprocess.run(["sha256sum", f["path"]], capture_output=True, text=True, check=True)
+        assert f["sha256"] == printed.stdout.split()[0]
+        assert f["size"] == os.path.getsize(f["path"])
+
+
+def test_geotiff_carries_lineage_summary_and_writer_options(layers):
+    """The output is tiled 256 x 256, DEFLATE with predictor, nodata declared, lineage named."""
+    folder, paths, _ = layers
+    evaluate_tree(Tree.from_dict(three_leaf_tree(paths)), str(folder / "fav.tif"))
+    ds = gdal.Open(str(folder / "fav.tif"))
+    band = ds.GetRasterBand(1)
+    assert band.GetBlockSize() == [256, 256]
+    assert band.GetNoDataValue() == -9999.0
+    assert ds.GetMetadata("IMAGE_STRUCTURE")["COMPRESSION"] == "DEFLATE"
+    assert ds.GetMetadata("IMAGE_STRUCTURE")["PREDICTOR"] == "3"
+    assert ds.GetMetadataItem("FAVOUR_LINEAGE") == "fav.tif.lineage.json"
+    assert "not a resource estimate" in ds.GetMetadataItem("FAVOUR_CAUTION")
+    assert band.GetDescription() == "Favourability"
+
+
+def test_node_rasters_are_written_for_components(layers):
+    """With a node folder, each component and each save_output node gets its own raster."""
+    folder, paths, arrays = layers
+    doc = tree_doc([
+        {"name": "Source", "component": "source", "operator": {"type": "or"},
+         "children": [leaf("Mag", paths["mag"], {"type": "linear", "lower": 60, "upper": 160})]},
+        {"name": "Trap", "component": "trap", "operator": {"type": "and"},
+         "children": [dict(leaf("Host", paths["litho"],
+                               {"type": "categories", "scores": {"3": 0.9}, "default": 0.2}),
+                           save_output=True)]},
+    ])
+    result = evaluate_tree(Tree.from_dict(doc), str(folder / "fav.tif"), str(folder / "nodes"))
+    assert sorted(os.path.basename(p) for p in result.node_outputs.values()) == \
+        ["source.tif", "trap-host.tif", "trap.tif"]
+    trap = read_raster(folder / "nodes" / "trap.tif")
+    np.testing.assert_allclose(trap, np.where(arrays["litho"] == 3, 0.9, 0.2), rtol=1e-7)
+    assert node_file_name("Favourability > Source > Near the Big  fault!") == "source-near_the_big_fault.tif"
+
+
+def test_results_do_not_depend_on_thread_count(layers):
+    """One thread and two threads write identical cells (blocks are written in order)."""
+    folder, paths, _ = layers
+    tree = Tree.from_dict(three_leaf_tree(paths))
+    evaluate_tree(tree, str(folder / "one.tif"), threads=1)
+    evaluate_tree(tree, str(folder / "two.tif"), threads=2)
+    np.testing.assert_array_equal(read_raster(folder / "one.tif"), read_raster(folder / "two.tif"))
+
+
+def test_coarser_proxy_is_aligned_bilinearly_with_warning_and_lineage(layers):
+    """A proxy at 200 m on a 100 m grid is resampled bilinearly, as gdalwarp -r bilinear does."""
+    folder, paths, arrays = layers
+    coarse = RNG.uniform(0, 100, (130, 150)).astype(np.float32)
+    coarse_path = write_raster(folder / "coarse.tif", coarse, cell=200.0)
+    doc = tree_doc([leaf("Mag", paths["mag"], {"type": "linear", "lower": 60, "upper": 160}),
+                    leaf("Coarse", coarse_path, {"type": "linear", "lower": 0, "upper": 100})],
+                   {"type": "or"}, grid={"reference": paths["mag"]})
+    feedback = Feedback()
+    doc["root"]["children"][0]["save_output"] = True
+    doc["root"]["children"][1]["save_output"] = True
+    result = evaluate_tree(Tree.from_dict(doc), str(folder / "fav.tif"), str(folder / "nodes"), feedback)
+    assert any(w["category"] == "AlignmentWarning" and "bilinear" in w["message"]
+               for w in feedback.warnings)
+    entry = next(e for e in result.lineage["inputs"] if e["node"].endswith("Coarse"))
+    assert entry["alignment"]["resampled"] and entry["alignment"]["method"] == "bilinear"
+    # Reference: GDAL's own gdalwarp command on the same file and grid.
+    warped = folder / "warped.tif"
+    subprocess.run(["gdalwarp", "-q", "-r", "bilinear", "-te", str(ORIGIN[0]), str(ORIGIN[1] - 26000),
+                    str(ORIGIN[0] + 30000), str(ORIGIN[1]), "-ts", "300", "260", "-ot", "Float64",
+                    coarse_path, str(warped)], check=True)
+    expected = np.clip(read_raster(warped) / 100.0, 0, 1)
+    np.testing.assert_allclose(read_raster(folder / "nodes" / "coarse.tif"), expected, atol=1e-6)
+    assert AlignmentWarning.__name__ == "AlignmentWarning"
+
+
+def test_proxy_in_another_crs_is_reprojected_and_recorded(layers):
+    """A proxy in geographic coordinates is reprojected onto the grid, warned and recorded."""
+    folder, paths, arrays = layers
+    geographic = folder / "geo.tif"
+    subprocess.run(["gdalwarp", "-q", "-t_srs", "EPSG:4326", "-r", "near", paths["grav"], str(geographic)],
+                   check=True)
+    doc = tree_doc([leaf("Grav", str(geographic), {"type": "linear", "lower": -5, "upper": 5})],
+                   {"type": "and"}, grid={"reference": paths["grav"]})
+    feedback = Feedback()
+    result = evaluate_tree(Tree.from_dict(doc), str(folder / "fav.tif"), feedback=feedback)
+    (entry,) = result.lineage["inputs"]
+    assert entry["alignment"]["resampled"]
+    assert any("CRS" in r for r in entry["alignment"]["reasons"])
+    assert any(w["category"] == "AlignmentWarning" for w in result.lineage["warnings"])
+    got = read_raster(folder / "fav.tif")
+    inner = got[20:-20, 20:-20]
+    expected = np.clip((arrays["grav"][20:-20, 20:-20] + 5) / 10, 0, 1)
+    # A round trip through another CRS smooths the field but keeps it strongly related.
+    assert np.corrcoef(inner[np.isfinite(inner)], expected[np.isfinite(inner)])[0, 1] > 0.5
+
+
+def test_partial_coverage_warns_and_leaves_outside_as_nodata(layers):
+    """A proxy covering the west half leaves the east half nodata, with a NodataWarning."""
+    folder, paths, _ = layers
+    west = write_raster(folder / "west.tif", np.full((260, 150), 50, np.float32))
+    doc = tree_doc([leaf("West", west, {"type": "linear", "lower": 0, "upper": 100})],
+                   grid={"reference": paths["mag"]})
+    feedback = Feedback()
+    evaluate_tree(Tree.from_dict(doc), str(folder / "fav.tif"), feedback=feedback)
+    got = read_raster(folder / "fav.tif")
+    assert np.allclose(got[:, :150], 0.5) and np.isnan(got[:, 150:]).all()
+    assert any(w["category"] == NodataWarning.__name__ and "50.0%" in w["message"]
+               for w in feedback.warnings)
+
+
+def _segment_distance(px, py, ax, ay, bx, by):
+    """Exact distance from points to a segment (the standard projection formula)."""
+    abx, aby = bx - ax, by - ay
+    t = np.clip(((px - ax) * abx + (py - ay) * aby) / (abx * abx + aby * aby), 0, 1)
+    return np.hypot(px - (ax + t * abx), py - (ay + t * aby))
+
+
+def test_distance_proxy_is_within_a_cell_of_exact_distance(layers):
+    """Distance to a fault agrees with the exact point-to-segment distance to within one cell."""
+    folder, paths, _ = layers
+    doc = tree_doc([dict(leaf("Fault", paths["faults"], {"type": "linear", "lower": 0, "upper": 1e6},
+                              layer="faults", measure="distance"))],
+                   grid={"reference": paths["mag"]})
+    evaluate_tree(Tree.from_dict(doc), str(folder / "fav.tif"))
+    distance = read_raster(folder / "fav.tif") * 1e6
+    cols, rows = np.meshgrid(np.arange(300), np.arange(260))
+    px, py = ORIGIN[0] + (cols + 0.5) * 100, ORIGIN[1] - (rows + 0.5) * 100
+    exact = _segment_distance(px, py, ORIGIN[0] + 5000, ORIGIN[1], ORIGIN[0] + 9000, ORIGIN[1] - 26000)
+    assert np.max(np.abs(distance - exact)) <= 100.0 + 1e-3
+
+
+def test_vector_in_another_crs_is_reprojected(layers):
+    """Features stored in EPSG:4326 are measured in the grid's CRS, with a warning."""
+    folder, paths, _ = layers
+    geographic = folder / "faults4326.gpkg"
+    subprocess.run(["ogr2ogr", "-t_srs", "EPSG:4326", str(geographic), paths["faults"]], check=True)
+    doc = tree_doc([leaf("Fault", str(geographic), {"type": "linear", "lower": 0, "upper": 1e6},
+                         measure="distance")], grid={"reference": paths["mag"]})
+    feedback = Feedback()
+    evaluate_tree(Tree.from_dict(doc), str(folder / "fav.tif"), feedback=feedback)
+    assert any("reprojected" in w["message"] for w in feedback.warnings)
+    assert np.nanmin(read_raster(folder / "fav.tif")) == 0.0
+
+
+def test_progress_rises_to_one(layers):
+    """Progress is reported, never decreases, and ends at 1."""
+    folder, paths, _ = layers
+    feedback = Recorder()
+    evaluate_tree(Tree.from_dict(three_leaf_tree(paths)), str(folder / "fav.tif"), feedback=feedback)
+    assert feedback.progress[-1] == 1.0
+    assert all(b >= a for a, b in zip(feedback.progress, feedback.progress[1:]))
+
+
+def _leftovers(folder):
+    """Files and folders a failed run must not leave behind."""
+    return [p for p in os.listdir(folder) if ".partial" in p or p.startswith(".favour-")]
+
+
+def test_cancel_part_way_leaves_nothing_and_keeps_the_old_output(layers):
+    """A cancel mid-stream raises CancelledError; the previous output is untouched, no partials."""
+    folder, paths, _ = layers
+    tree = Tree.from_dict(three_leaf_tree(paths))
+    target = folder / "fav.tif"
+    target.write_bytes(b"the user's earlier map")
+    with pytest.raises(CancelledError):
+        evaluate_tree(tree, str(target), str(folder / "nodes"), Recorder(cancel_after=3), threads=2)
+    assert target.read_bytes() == b"the user's earlier map"
+    assert not (folder / "fav.tif.lineage.json").exists()
+    assert _leftovers(folder) == [] and os.listdir(folder / "nodes") == []
+
+
+def test_reproduce_says_identical_then_names_the_changed_input(layers):
+    """reproduce: identical on a fresh output; after one cell of one input changes, it names it."""
+    folder, paths, arrays = layers
+    tree_file = write_tree(folder / "tree.json", three_leaf_tree(paths))
+    out = str(folder / "fav.tif")
+    evaluate_tree_file(tree_file, out)
+    outcome = reproduce(out)
+    assert outcome.identical and outcome.changed_inputs == []
+    changed = arrays["grav"].copy()
+    changed[100, 100] += 3.0
+    write_raster(paths["grav"], changed)
+    outcome = reproduce(out)
+    assert not outcome.identical and outcome.differing_cells == 1
+    assert [c["path"] for c in outcome.changed_inputs] == [paths["grav"]]
+    assert outcome.changed_inputs[0]["node"] == "Favourability > Grav"
+    assert "grav.tif" in outcome.summary()
+
+
+def test_reproduce_rebuilds_a_missing_output_from_lineage_alone(layers):
+    """With the output deleted and the tree file gone, the lineage alone rebuilds the same cells."""
+    folder, paths, _ = layers
+    tree_file = write_tree(folder / "tree.json", three_leaf_tree(paths))
+    out = folder / "fav.tif"
+    evaluate_tree_file(tree_file, str(out))
+    first = read_raster(out)
+    shutil.copy(str(out) + ".lineage.json", folder / "kept.json")
+    os.unlink(out)
+    os.unlink(tree_file)
+    outcome = reproduce(str(out))
+    assert outcome.rebuilt
+    np.testing.assert_array_equal(read_raster(out), first)
+
+
+def test_reproduce_without_lineage_is_a_clear_error(tmp_path):
+    """No lineage beside the raster: LineageError naming the missing file."""
+    path = write_raster(tmp_path / "plain.tif", np.zeros((3, 3), np.float32))
+    with pytest.raises(LineageError, match="plain.tif.lineage.json does not exist"):
+        reproduce(path)
+
+
+@pytest.mark.parametrize("make, error, message", [
+    (lambda d, p: leaf("Missing", d / "nope.tif", {"type": "linear", "lower": 0, "upper": 1}),
+     MissingInputError, r"Favourability > Missing: the layer file .*nope.tif does not exist"),
+    (lambda d, p: leaf("Empty", write_vector(d / "empty.gpkg", [], layer="none"),
+                       {"type": "linear", "lower": 0, "upper": 1}, measure="distance"),
+     InputError, r"Favourability > Empty: the vector layer empty.gpkg:none has no features"),
+    (lambda d, p: leaf("NoCRS", write_raster(d / "nocrs.tif", np.ones((260, 300), np.float32), crs=None),
+                       {"type": "linear", "lower": 0, "upper": 1}),
+     GridError, r"Favourability > NoCRS: the layer .*nocrs.tif has no CRS"),
+    (lambda d, p: leaf("NoCRSv", write_vector(d / "nocrs.gpkg", ["POINT (500100 1019900)"], crs=None),
+                       {"type": "linear", "lower": 0, "upper": 1}, measure="distance"),
+     GridError, r"Favourability > NoCRSv: the vector layer nocrs.gpkg:features has no CRS"),
+    (lambda d, p: leaf("Far", write_raster(d / "far.tif", np.ones((5, 5), np.float32),
+                                           origin=(9e6, 9e6)),
+                       {"type": "linear", "lower": 0, "upper": 1}),
+     GridError, r"Favourability > Far: the layer .*far.tif .* does not overlap the grid"),
+    (lambda d, p: leaf("Not mu", p["mag"], {"type": "identity"}),
+     InputError, r"Favourability > Not mu: membership 'identity' needs values already in \[0, 1\]"),
+])
+def test_bad_inputs_name_the_node_and_leave_no_output(layers, make, error, message):
+    """Each unusable input raises its error with the node path; no output or partial file remains."""
+    folder, paths, _ = layers
+    doc = tree_doc([leaf("Mag", paths["mag"], {"type": "linear", "lower": 60, "upper": 160}),
+                    make(folder, paths)], grid={"reference": paths["mag"]})
+    out = folder / "out"
+    with pytest.raises(error, match=message):
+        evaluate_tree(Tree.from_dict(doc), str(out / "fav.tif"), str(out / "nodes"))
+    assert not (out / "fav.tif").exists() and _leftovers(out) == []
+
+
+def test_output_that_cannot_be_written_is_refused_before_work(layers):
+    """An output whose folder cannot be created (a file is in the way) fails at once, cleanly."""
+    folder, paths, _ = layers
+    blocker = folder / "blocker"
+    blocker.write_text("a file, not a folder")
+    from favour_plugin.core.errors import OutputError
+    with pytest.raises(OutputError, match="cannot write to the folder .*blocker"):
+        evaluate_tree(Tree.from_dict(three_leaf_tree(paths)), str(blocker / "fav.tif"))
+    with pytest.raises(OutputError, match="must be a GeoTIFF"):
+        evaluate_tree(Tree.from_dict(three_leaf_tree(paths)), str(folder / "fav.png"))
+
+
+def test_windows_cover_the_grid_exactly_once():
+    """The block iterator tiles any grid without gaps or overlaps."""
+    for width, height in [(1, 1), (255, 257), (1024, 256), (3001, 700)]:
+        seen = np.zeros((height, width), np.int32)
+        for w in iter_windows(width, height):
+            seen[w.row_off:w.row_off + w.height, w.col_off:w.col_off + w.width] += 1
+        assert (seen == 1).all()

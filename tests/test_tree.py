@@ -1,0 +1,222 @@
+"""The tree file: schema checks against the jsonschema reference, messages, round trips."""
+
+import copy
+import json
+from pathlib import Path
+
+import jsonschema
+import numpy as np
+import pytest
+
+from favour_plugin.core.errors import TreeFileError
+from favour_plugin.core.schema import SCHEMA_DIR, Validator, load_validator
+from favour_plugin.core.tree import Tree
+
+SCHEMA = json.loads((SCHEMA_DIR / "tree-v1.schema.json").read_text(encoding="utf-8"))
+
+
+def example() -> dict:
+    """The minimum-contract example of the tree file, with one of every membership type."""
+    return {
+        "format": "favour-tree", "version": 1, "name": "Example",
+        "grid": {"reference": "layers/magnetics.tif"},
+        "root": {"name": "Favourability", "operator": {"type": "gamma", "gamma": 0.9},
+                 "children": [
+            {"name": "Source", "component": "source", "operator": {"type": "or"}, "rationale": "r",
+             "children": [
+                 {"name": "Mafic volcanic host", "proxy": {"path": "layers/litho.tif", "band": 1},
+                  "membership": {"type": "categories", "scores": {"3": 0.9, "5": 0.6}, "default": 0.05},
+                  "weight": 1.0, "rationale": "r"},
+                 {"name": "Magnetic high", "proxy": {"path": "layers/magnetics.tif"},
+                  "membership": {"type": "linear", "lower": 10, "upper": 80}}]},
+            {"name": "Pathway", "component": "pathway",
+             "operator": {"type": "weighted_mean", "nodata": "ignore"}, "children": [
+                 {"name": "Near faults",
+                  "proxy": {"path": "layers/faults.gpkg", "layer": "faults", "measure": "distance"},
+                  "membership": {"type": "logistic", "midpoint": 500, "slope": -0.01}, "weight": 2},
+                 {"name": "Gravity ridge", "proxy": {"path": "layers/gravity.tif"},
+                  "membership": {"type": "gaussian", "centre": 2, "spread": 1.5}},
+                 {"name": "Arsenic", "proxy": {"path": "layers/arsenic.tif"},
+                  "membership": {"type": "piecewise", "points": [[5, 0], [20, 0.7], [60, 1]]}},
+                 {"name": "Depth", "proxy": {"path": "layers/cover.tif"},
+                  "membership": {"type": "trapezoid", "points": [0, 0, 50, 200]}}]}]}}
+
+
+def mutations():
+    """Yield (label, document) pairs: the example broken in one way each, and a few valid variants."""
+    yield "valid", example()
+    doc = example()
+    del doc["grid"]
+    yield "valid without grid", doc
+    doc = example()
+    doc["grid"] = {"crs": "EPSG:32750", "extent": [0, 0, 1000, 1000], "cell_size": 25}
+    yield "valid with crs grid", doc
+    doc = example()
+    doc["custom"] = {"kept": True}
+    doc["root"]["children"][0]["notes"] = "free text"
+    yield "valid with extra fields", doc
+    paths = {
+        "format": (("format",), "other"),
+        "version type": (("version",), "1"),
+        "root name type": (("root", "name"), 7),
+        "empty name": (("root", "name"), ""),
+        "operator type": (("root", "operator", "type"), "xor"),
+        "gamma high": (("root", "operator", "gamma"), 1.2),
+        "gamma negative": (("root", "operator", "gamma"), -0.2),
+        "component": (("root", "children", 0, "component"), "fluid"),
+        "weight negative": (("root", "children", 0, "children", 0, "weight"), -1),
+        "band zero": (("root", "children", 0, "children", 0, "proxy", "band"), 0),
+        "score high": (("root", "children", 0, "children", 0, "membership", "scores", "3"), 1.5),
+        "score key": (("root", "children", 0, "children", 0, "membership", "scores"), {"x": 1}),
+        "default text": (("root", "children", 0, "children", 0, "membership", "default"), "low"),
+        "lower text": (("root", "children", 0, "children", 1, "membership", "lower"), "ten"),
+        "measure": (("root", "children", 1, "children", 0, "proxy", "measure"), "density"),
+        "spread zero": (("root", "children", 1, "children", 1, "membership", "spread"), 0),
+        "points short": (("root", "children", 1, "children", 3, "membership", "points"), [0, 1, 2]),
+        "pair long": (("root", "children", 1, "children", 2, "membership", "points"), [[1, 0, 3], [2, 1]]),
+        "nodata rule": (("root", "children", 1, "operator", "nodata"), "skip"),
+        "children empty": (("root", "children", 0, "children"), []),
+        "grid cell": (("grid",), {"crs": "EPSG:4326", "extent": [0, 0, 1, 1], "cell_size": 0}),
+        "grid partial": (("grid",), {"crs": "EPSG:4326"}),
+        "extent short": (("grid",), {"crs": "EPSG:4326", "extent": [0, 0, 1], "cell_size": 1}),
+    }
+    for label, (path, value) in paths.items():
+        doc = example()
+        target = doc
+        for key in path[:-1]:
+            target = target[key]
+        target[path[-1]] = value
+        yield label, doc
+    for label, path in {"no root": ("root",), "no gamma": ("root", "operator", "gamma"),
+                        "no upper": ("root", "children", 0, "children", 1, "membership", "upper"),
+                        "no membership": ("root", "children", 0, "children", 1, "membership"),
+                        "no proxy path": ("root", "children", 0, "children", 1, "proxy", "path"),
+                        "no operator": ("root", "children", 1, "operator")}.items():
+        doc = example()
+        target = doc
+        for key in path[:-1]:
+            target = target[key]
+        del target[path[-1]]
+        yield label, doc
+
+
+@pytest.mark.parametrize("label, doc", list(mutations()), ids=[m[0] for m in mutations()])
+def test_our_validator_agrees_with_jsonschema(label, doc):
+    """core.schema gives the same verdict as the jsonschema reference implementation (Draft 2020-12)."""
+    reference = jsonschema.Draft202012Validator(SCHEMA)
+    ours = load_validator("tree-v1.schema.json")
+    assert (not ours.issues(doc)) == reference.is_valid(doc), label
+    assert label.startswith("valid") == reference.is_valid(doc), label
+
+
+def test_schema_is_a_valid_draft_2020_12_schema():
+    """The shipped schema passes jsonschema's meta-schema check."""
+    jsonschema.Draft202012Validator.check_schema(SCHEMA)
+
+
+def test_validator_refuses_keywords_it_does_not_implement():
+    """A schema using an unsupported keyword is refused rather than silently half-checked."""
+    with pytest.raises(ValueError, match="'oneOf' is not supported"):
+        Validator({"oneOf": [{"type": "string"}]})
+
+
+@pytest.mark.parametrize("path, value, message", [
+    (("root", "operator", "gamma"), 1.5, r"Favourability: operator.gamma: must be at most 1, got 1.5"),
+    (("root", "children", 0, "children", 1, "membership", "lower"), 80,
+     r"Favourability > Source > Magnetic high: membership 'linear': 'lower' and 'upper' are both 80"),
+    (("root", "children", 1, "children", 3, "membership", "points"), [0, 60, 50, 200],
+     r"Favourability > Pathway > Depth: membership 'trapezoid': points must be ordered"),
+    (("root", "children", 0, "children", 0, "membership", "type"), "fuzzy",
+     r"Favourability > Source > Mafic volcanic host: membership.type: must be one of"),
+    (("root", "children", 0, "operator", "type"), "xor",
+     r"Favourability > Source: operator.type: must be one of"),
+    (("root", "children", 1, "children", 1, "membership", "spread"), "wide",
+     r"Favourability > Pathway > Gravity ridge: membership.spread: must be of type number"),
+])
+def test_messages_name_the_node_path_and_the_problem(path, value, message):
+    """A bad value is reported with the node's path from the root and the field."""
+    doc = example()
+    target = doc
+    for key in path[:-1]:
+        target = target[key]
+    target[path[-1]] = value
+    with pytest.raises(TreeFileError, match=message):
+        Tree.from_dict(doc)
+
+
+def test_duplicate_sibling_names_are_refused():
+    """Two children with one name would make node paths ambiguous."""
+    doc = example()
+    doc["root"]["children"][1]["name"] = "Source"
+    with pytest.raises(TreeFileError, match="two children are named 'Source'"):
+        Tree.from_dict(doc)
+
+
+def test_future_version_names_both_versions():
+    """A version newer than this program reads is refused with both numbers."""
+    doc = example()
+    doc["version"] = 2
+    with pytest.raises(TreeFileError, match="version 2 is newer than this Favour reads \\(version 1\\)"):
+        Tree.from_dict(doc)
+
+
+def test_invalid_json_names_line_and_column(tmp_path):
+    """Broken JSON is reported with its line and column."""
+    path = tmp_path / "broken.json"
+    path.write_text('{\n  "format": "favour-tree",\n  "version": 1\n  "root": {}\n}\n')
+    with pytest.raises(TreeFileError, match="not valid JSON: Expecting ',' delimiter at line 4, column 3"):
+        Tree.load(path)
+
+
+def test_not_a_tree_file(tmp_path):
+    """A JSON file of another kind is refused as not a Favour tree."""
+    with pytest.raises(TreeFileError, match="not a Favour tree file"):
+        Tree.from_dict({"type": "FeatureCollection"})
+    with pytest.raises(TreeFileError, match="does not exist"):
+        Tree.load(tmp_path / "missing.json")
+
+
+def test_round_trip_keeps_everything_including_unknown_fields():
+    """from_dict(to_dict()) reproduces the document, extra fields and all."""
+    doc = example()
+    doc["custom"] = {"kept": [1, 2]}
+    doc["root"]["children"][0]["children"][0]["proxy"]["note"] = "aeromagnetic survey 3"
+    doc["root"]["children"][1]["extra_field"] = 5
+    tree = Tree.from_dict(copy.deepcopy(doc))
+    again = tree.to_dict()
+    assert again["custom"] == {"kept": [1, 2]}
+    assert again["root"]["children"][1]["extra_field"] == 5
+    assert again["root"]["children"][0]["children"][0]["proxy"]["note"] == "aeromagnetic survey 3"
+    assert Tree.from_dict(again).to_dict() == again
+
+
+def test_save_keeps_a_backup_and_rebases_relative_paths(tmp_path):
+    """save() writes atomically, keeps one .bak, and relative paths still point at the same files."""
+    first = tmp_path / "models" / "model.json"
+    first.parent.mkdir()
+    tree = Tree.from_dict(example(), base_dir=first.parent)
+    tree.save(first)
+    before = {p: n.proxy.resolve(tree.base_dir) for p, n in tree.walk() if n.proxy}
+    tree.name = "Second version"
+    tree.save(first)
+    assert json.loads((first.parent / "model.json.bak").read_text())["name"] == "Example"
+    moved = tmp_path / "elsewhere" / "deeper" / "copy.json"
+    moved.parent.mkdir(parents=True)
+    tree.save(moved)
+    reloaded = Tree.load(moved)
+    after = {p: n.proxy.resolve(reloaded.base_dir) for p, n in reloaded.walk() if n.proxy}
+    assert after == before
+    assert reloaded.to_dict()["root"]["children"][0]["children"][0]["proxy"]["path"] == \
+        "../../models/layers/litho.tif"
+    assert not list(Path(tmp_path).rglob("*.partial"))
+
+
+def test_plan_evaluates_children_before_parents_and_drops_unkept_nodes():
+    """evaluate_block returns the root and kept nodes only, computed bottom-up."""
+    plan = Tree.from_dict(example()).compile()
+    values = {leaf.path: np.array([3.0, 1.0, np.nan]) for leaf in plan.leaves}
+    out = plan.evaluate_block(values, keep=["Favourability > Source"])
+    assert set(out) == {"Favourability", "Favourability > Source"}
+    # Source = OR(categories(3)=0.9, linear(3; 10, 80)=0) = 0.9 in the first cell.
+    assert out["Favourability > Source"][0] == pytest.approx(0.9)
+    assert np.isnan(out["Favourability"][2])
