@@ -23,8 +23,9 @@ class FavourPlugin:
             return
         from .processing.provider import FavourProvider
 
-        self.provider = FavourProvider()
-        QgsApplication.processingRegistry().addProvider(self.provider)
+        provider = FavourProvider()
+        if QgsApplication.processingRegistry().addProvider(provider):
+            self.provider = provider
 
     def initGui(self) -> None:  # noqa: N802 (QGIS calls it by this name)
         """Start the plugin in the desktop: register the provider."""
