@@ -17,7 +17,7 @@ def test_top_level_metadata_is_the_plugins_own():
 
 
 def test_metadata_has_what_the_plugin_repository_requires():
-    """Every key QGIS's plugin repository checks is present; minimum version 3.22 (common practice, no source)."""
+    """Every key the QGIS plugin repository checks is present; minimum 3.22 (common practice, no source)."""
     meta = configparser.ConfigParser(interpolation=None)
     meta.read(ROOT / "metadata.txt", encoding="utf-8")
     general = meta["general"]

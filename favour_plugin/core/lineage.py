@@ -69,35 +69,41 @@ def describe_files(files: Iterable[str]) -> list[dict]:
 class NodeStatistics:
     """Running statistics of one node's μ over the blocks of a pass.
 
-    Counts valid and nodata cells and keeps the sum, sum of squares, minimum,
-    maximum and a 10-bin histogram over [0, 1] in float64.
+    Counts valid and nodata cells and keeps the sum, sum of squares, minimum
+    and maximum in float64, and optionally a 10-bin histogram over [0, 1].
+    Values are μ in [0, 1] (NaN for nodata), which lets NaN be replaced by 0
+    with one ``fmax`` pass instead of a boolean copy.
     """
 
     BINS = 10
 
-    def __init__(self) -> None:
+    def __init__(self, histogram: bool = True) -> None:
         self.valid = 0
         self.nodata = 0
         self.total = 0.0
         self.total_sq = 0.0
         self.minimum = np.inf
         self.maximum = -np.inf
-        self.histogram = np.zeros(self.BINS, dtype=np.int64)
+        self.histogram = np.zeros(self.BINS, dtype=np.int64) if histogram else None
 
     @classmethod
-    def of_block(cls, values: np.ndarray) -> NodeStatistics:
-        """Return the statistics of one block."""
-        stats = cls()
-        finite = values[~np.isnan(values)]
-        stats.valid = int(finite.size)
-        stats.nodata = int(values.size - finite.size)
-        if finite.size:
-            stats.total = float(finite.sum())
-            stats.total_sq = float(np.dot(finite, finite))
-            stats.minimum = float(finite.min())
-            stats.maximum = float(finite.max())
-            bins = np.minimum((finite * cls.BINS).astype(np.int64), cls.BINS - 1)
-            stats.histogram = np.bincount(np.clip(bins, 0, cls.BINS - 1), minlength=cls.BINS)
+    def of_block(cls, values: np.ndarray, histogram: bool = True) -> NodeStatistics:
+        """Return the statistics of one block of μ."""
+        stats = cls(histogram)
+        nodata = int(np.count_nonzero(np.isnan(values)))
+        stats.nodata = nodata
+        stats.valid = int(values.size - nodata)
+        if stats.valid:
+            filled = np.fmax(values, 0.0).ravel()  # NaN -> 0 (μ >= 0, so nothing else moves)
+            stats.total = float(filled.sum())
+            stats.total_sq = float(np.dot(filled, filled))
+            stats.minimum = float(np.fmin.reduce(values, axis=None))
+            stats.maximum = float(np.fmax.reduce(values, axis=None))
+            if histogram:
+                bins = np.minimum((filled * cls.BINS).astype(np.int32), cls.BINS - 1)
+                counts = np.bincount(bins, minlength=cls.BINS)
+                counts[0] -= nodata  # the filled nodata cells landed in the first bin
+                stats.histogram = counts.astype(np.int64)
         return stats
 
     def merge(self, other: NodeStatistics) -> None:
@@ -108,18 +114,20 @@ class NodeStatistics:
         self.total_sq += other.total_sq
         self.minimum = min(self.minimum, other.minimum)
         self.maximum = max(self.maximum, other.maximum)
-        self.histogram = self.histogram + other.histogram
+        if self.histogram is not None and other.histogram is not None:
+            self.histogram = self.histogram + other.histogram
 
     def to_dict(self) -> dict:
         """Return the statistics as plain data (None where there is no valid cell)."""
-        if self.valid == 0:
-            return {"valid_cells": 0, "nodata_cells": self.nodata, "min": None, "max": None,
-                    "mean": None, "std": None, "histogram": self.histogram.tolist()}
-        mean = self.total / self.valid
-        var = max(0.0, self.total_sq / self.valid - mean * mean)
-        return {"valid_cells": self.valid, "nodata_cells": self.nodata, "min": self.minimum,
-                "max": self.maximum, "mean": mean, "std": var ** 0.5,
-                "histogram": self.histogram.tolist()}
+        out = {"valid_cells": self.valid, "nodata_cells": self.nodata, "min": None, "max": None,
+               "mean": None, "std": None}
+        if self.valid:
+            mean = self.total / self.valid
+            var = max(0.0, self.total_sq / self.valid - mean * mean)
+            out.update(min=self.minimum, max=self.maximum, mean=mean, std=var ** 0.5)
+        if self.histogram is not None:
+            out["histogram"] = self.histogram.tolist()
+        return out
 
 
 def write_lineage(record: dict, output: str | os.PathLike) -> Path:

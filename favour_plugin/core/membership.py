@@ -45,9 +45,12 @@ def linear(x: np.ndarray, lower: float, upper: float) -> np.ndarray:
     μ(x) = clip((x − lower) / (upper − lower), 0, 1).
     The linear fuzzy membership of Bonham-Carter (1994, ch. 9) [BC94]_.
     """
-    x = np.asarray(x, dtype=np.float64)
-    with np.errstate(over="ignore"):  # a very steep ramp overflows to ±inf, clipped to 0 or 1
-        return np.clip((x - lower) / (upper - lower), 0.0, 1.0)
+    mu = np.subtract(np.asarray(x, dtype=np.float64), lower)
+    with np.errstate(over="ignore"):  # a very steep ramp overflows to ±inf, clamped to 0 or 1
+        np.divide(mu, upper - lower, out=mu)
+    # In place and NaN-preserving; np.clip does the same several times slower.
+    np.maximum(mu, 0.0, out=mu)
+    return np.minimum(mu, 1.0, out=mu)
 
 
 def logistic(x: np.ndarray, midpoint: float, slope: float) -> np.ndarray:
@@ -100,8 +103,10 @@ def gaussian(x: np.ndarray, centre: float, spread: float) -> np.ndarray:
     The Gaussian membership of fuzzy-set practice (Zimmermann 2001) [Zim01]_,
     the same curve as scikit-fuzzy's ``gaussmf(x, mean=centre, sigma=spread)``.
     """
-    x = np.asarray(x, dtype=np.float64)
-    return np.exp(-((x - centre) ** 2) / (2.0 * spread * spread))
+    mu = np.subtract(np.asarray(x, dtype=np.float64), centre)
+    np.multiply(mu, mu, out=mu)
+    np.divide(mu, -2.0 * spread * spread, out=mu)
+    return np.exp(mu, out=mu)
 
 
 def trapezoid(x: np.ndarray, a: float, b: float, c: float, d: float) -> np.ndarray:

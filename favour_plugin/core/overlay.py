@@ -45,26 +45,45 @@ def _stack_check(children: Sequence[np.ndarray]) -> tuple:
     return shape
 
 
-def _missing_mask(children: Sequence[np.ndarray], rule: str) -> tuple[np.ndarray, np.ndarray]:
-    """Return (result-missing mask, count of present children) under ``rule``."""
+def _missing_mask(children: Sequence[np.ndarray], rule: str) -> np.ndarray:
+    """Return where the result is missing under ``rule``: any child missing, or all."""
     present = np.zeros(np.shape(children[0]), dtype=np.int32)
     for child in children:
         present += ~np.isnan(child)
-    if rule == "propagate":
-        return present < len(children), present
-    return present == 0, present
+    return present < len(children) if rule == "propagate" else present == 0
 
 
-def _accumulate(children, rule, start, combine, neutral):
-    """Fold ``combine`` over the children in float64, with missing cells as ``neutral``."""
+def _fold(children, nodata, combine, neutral, transform=None):
+    """Fold the ufunc ``combine`` over the children in float64.
+
+    Under ``propagate`` no mask is needed: NaN carries through ``minimum``,
+    ``maximum`` and ``multiply`` by itself, so the fold is plain in-place
+    arithmetic. Under ``ignore`` a missing child acts as ``neutral`` and
+    cells missing in every child are set missing at the end. ``transform``
+    maps each child before folding (``1 − μ`` for the algebraic sum).
+    """
     _stack_check(children)
-    missing, _ = _missing_mask(children, rule)
-    acc = np.full(np.shape(children[0]), start, dtype=np.float64)
+
+    def value(child):
+        array = np.asarray(child, dtype=np.float64)
+        return transform(array) if transform is not None else array
+
+    if nodata == "propagate":
+        acc = np.array(value(children[0]), dtype=np.float64, copy=True)
+        for child in children[1:]:
+            combine(acc, value(child), out=acc)
+        return acc
+    acc = np.full(np.shape(children[0]), neutral, dtype=np.float64)
     for child in children:
-        value = np.asarray(child, dtype=np.float64)
-        acc = combine(acc, np.where(np.isnan(value), neutral, value))
-    acc[missing] = np.nan
+        v = value(child)
+        combine(acc, np.where(np.isnan(v), neutral, v), out=acc)
+    acc[_missing_mask(children, "ignore")] = np.nan
     return acc
+
+
+def _complement(array: np.ndarray) -> np.ndarray:
+    """Return 1 − μ (NaN stays NaN)."""
+    return np.subtract(1.0, array)
 
 
 def fuzzy_and(children: Sequence[np.ndarray], nodata: str = "propagate") -> np.ndarray:
@@ -75,7 +94,7 @@ def fuzzy_and(children: Sequence[np.ndarray], nodata: str = "propagate") -> np.n
     μ = min_i μ_i (Zadeh 1965) [Zad65]_. Under ``ignore`` the minimum of the
     children present (a missing child acts as 1).
     """
-    return _accumulate(children, nodata, 1.0, np.minimum, 1.0)
+    return _fold(children, nodata, np.minimum, 1.0)
 
 
 def fuzzy_or(children: Sequence[np.ndarray], nodata: str = "propagate") -> np.ndarray:
@@ -86,7 +105,7 @@ def fuzzy_or(children: Sequence[np.ndarray], nodata: str = "propagate") -> np.nd
     μ = max_i μ_i (Zadeh 1965) [Zad65]_. Under ``ignore`` the maximum of the
     children present (a missing child acts as 0).
     """
-    return _accumulate(children, nodata, 0.0, np.maximum, 0.0)
+    return _fold(children, nodata, np.maximum, 0.0)
 
 
 def fuzzy_product(children: Sequence[np.ndarray], nodata: str = "propagate") -> np.ndarray:
@@ -98,7 +117,7 @@ def fuzzy_product(children: Sequence[np.ndarray], nodata: str = "propagate") -> 
     Bonham-Carter 1994, ch. 9) [ZZ80]_ [BC94]_. Under ``ignore`` the product
     of the children present (a missing child acts as 1).
     """
-    return _accumulate(children, nodata, 1.0, np.multiply, 1.0)
+    return _fold(children, nodata, np.multiply, 1.0)
 
 
 def fuzzy_sum(children: Sequence[np.ndarray], nodata: str = "propagate") -> np.ndarray:
@@ -110,9 +129,8 @@ def fuzzy_sum(children: Sequence[np.ndarray], nodata: str = "propagate") -> np.n
     Bonham-Carter 1994, ch. 9) [ZZ80]_ [BC94]_. Under ``ignore`` the sum of
     the children present (a missing child acts as 0).
     """
-    complement = _accumulate(
-        [1.0 - np.asarray(c, dtype=np.float64) for c in children], nodata, 1.0, np.multiply, 1.0)
-    return 1.0 - complement
+    complement = _fold(children, nodata, np.multiply, 1.0, transform=_complement)
+    return np.subtract(1.0, complement, out=complement)
 
 
 def fuzzy_gamma(children: Sequence[np.ndarray], gamma: float, nodata: str = "propagate") -> np.ndarray:
@@ -176,7 +194,15 @@ def weighted_mean(children: Sequence[np.ndarray], weights: Sequence[float],
             raise ParameterError(f"weights must be finite and non-negative, got {w!r}")
     if sum(weights) <= 0:
         raise ParameterError("weighted_mean needs at least one positive weight")
-    missing, _ = _missing_mask(children, nodata)
+    if nodata == "propagate":
+        numerator = np.zeros(np.shape(children[0]), dtype=np.float64)
+        for child, w in zip(children, weights):
+            if w:
+                numerator += np.asarray(child, dtype=np.float64) * float(w)
+            else:  # a zero weight still propagates its child's missing cells
+                numerator[np.isnan(child)] = np.nan
+        numerator /= float(sum(weights))
+        return numerator
     numerator = np.zeros(np.shape(children[0]), dtype=np.float64)
     denominator = np.zeros_like(numerator)
     for child, w in zip(children, weights):
@@ -186,7 +212,7 @@ def weighted_mean(children: Sequence[np.ndarray], weights: Sequence[float],
         denominator += present * float(w)
     with np.errstate(invalid="ignore", divide="ignore"):
         result = numerator / denominator
-    result[missing | (denominator == 0)] = np.nan
+    result[denominator == 0] = np.nan
     return result
 
 

@@ -31,9 +31,9 @@ from ..core.errors import GridError, GridMismatchError, LineageError, MissingInp
 from ..core.feedback import Feedback, ScaledFeedback
 from ..core.tree import PATH_SEPARATOR, EvaluationPlan, Tree
 from .blocks import BLOCK_COLS, BLOCK_ROWS, count_windows, iter_windows
-from .gdalenv import gdal_job
+from .gdalenv import gdal_job, set_stream_cache
 from .grid import Grid
-from .sources import BlockReader, SourceSpec, open_raster, raster_source
+from .sources import BlockReader, SourceSpec, cache_need, open_raster, raster_source
 from .style import write_style
 from .vector import vector_source
 from .writer import RasterWriter, check_folder, check_writable
@@ -206,6 +206,8 @@ def _evaluate(tree, plan, output, node_folder, feedback, grid, threads, job, tre
         grid_note = {"source": "given by the caller"}
     feedback.info(f"grid: {grid.describe()}")
     sources = _prepare_sources(tree, plan, grid, workdir, feedback, (0.0, 0.15))
+    unique = {spec.key: spec for spec in sources.values()}.values()
+    cache_bytes = set_stream_cache(sum(cache_need(spec.record) for spec in unique))
 
     files = []
     if tree_file:
@@ -254,6 +256,7 @@ def _evaluate(tree, plan, output, node_folder, feedback, grid, threads, job, tre
                     "files": [hasher.result[f] for f in input_files[leaf.path]]}
                    for leaf in plan.leaves],
         "parameters": {"block": [BLOCK_ROWS, BLOCK_COLS], "threads": threads,
+                       "gdal_cache_bytes": cache_bytes,
                        "dtype": "float32", "nodata_value": -9999.0,
                        "arithmetic": "float64 within each block"},
         "nodata_policy": {step.path: step.operator.nodata for step in plan.steps},
@@ -302,11 +305,12 @@ def _stream(plan: EvaluationPlan, sources: dict[str, SourceSpec], grid: Grid,
                 by_key[spec.key] = reader.read(spec, window)
             values[leaf.path] = by_key[spec.key]
         results = plan.evaluate_block(values, keep)
-        block_stats = {path: lin.NodeStatistics.of_block(array) for path, array in results.items()}
+        block_stats = {path: lin.NodeStatistics.of_block(array, histogram=path in writers)
+                       for path, array in results.items()}
         return window, {path: results[path] for path in writers}, block_stats
 
     total = count_windows(grid.width, grid.height)
-    totals = {path: lin.NodeStatistics() for path in keep}
+    totals = {path: lin.NodeStatistics(histogram=path in writers) for path in keep}
     pending: deque = deque()
     windows = iter_windows(grid.width, grid.height)
     done = 0

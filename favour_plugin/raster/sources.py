@@ -24,6 +24,24 @@ RESAMPLING = {"nearest": "near", "bilinear": "bilinear", "cubic": "cubic",
               "average": "average", "mode": "mode"}
 
 
+def cache_need(record: dict) -> int:
+    """Return the GDAL block-cache bytes a source needs so no block is decompressed twice.
+
+    Windows are 256 rows by 1024 columns and follow the 256 x 256 tiles Favour
+    writes, so a tiled source needs next to nothing. A source stored in strips
+    as wide as itself is read again for every window across a row of windows
+    unless the strips of that row stay cached: 256 rows plus one strip, times
+    its width, times its cell size.
+    """
+    block = record.get("block")
+    grid = record.get("grid", {})
+    width = grid.get("width", 0)
+    if not block or block[0] < width:
+        return 0
+    cell_bytes = max(1, gdal.GetDataTypeSize(gdal.GetDataTypeByName(record["data_type"])) // 8)
+    return (256 + block[1]) * width * cell_bytes
+
+
 @dataclass(frozen=True)
 class SourceSpec:
     """How to read one proxy on the reference grid.
@@ -118,8 +136,10 @@ def raster_source(path: str, band: int, grid: Grid, resampling: str, name: str,
     scale = rb.GetScale() or 1.0
     offset = rb.GetOffset() or 0.0
     data_type = gdal.GetDataTypeName(rb.DataType)
+    block = rb.GetBlockSize()
     rb = None  # a band must never outlive its dataset, whatever error unwinds below
     record = {"kind": "raster", "path": path, "band": band, "data_type": data_type, "nodata": nodata,
+              "block": block,
               "grid": {"crs": crs_label(src_grid.srs), "cell_size": [src_grid.cell_x, src_grid.cell_y],
                        "extent": list(src_grid.extent), "width": src_grid.width,
                        "height": src_grid.height}}

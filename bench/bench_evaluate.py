@@ -1,0 +1,866 @@
+"""Benchmark: evaluating a gamma tree over eight large proxies, against the I/O floor and QGIS.
+
+Run with ``make bench`` (or ``.venv/bin/python bench/bench_evaluate.py``). The
+script builds eight float32 proxies (GeoTIFF, 256 x 256 tiles, DEFLATE with the
+floating-point predictor, declared nodata, a few nodata cells each; smooth
+synthetic fields from a seeded generator, so they compress like real grids) in
+a work folder, then times in one run:
+
+(a) the I/O floor: the eight read block by block (the engine's windows) and
+    one raster written with Favour's writer, no computation;
+(b) the same job with QGIS's own algorithms, as a user would do it: eight runs
+    of ``native:fuzzifyrasterlinearmembership`` and one raster calculator run
+    with the fuzzy gamma formula written out;
+(c) ``favour:evaluatetree`` on the equivalent tree, run through
+    ``qgis_process.bin`` (isolated profile, plugin enabled from this checkout),
+    and ``raster.engine.evaluate_tree_file`` called directly (the core path).
+
+Every stage runs in its own child process; its wall time and peak resident
+memory (``ru_maxrss`` from ``os.wait4`` in a small launcher) are measured
+separately, beside the same figures for an idle child of the same kind. (b)
+and (c) are then compared cell by cell. Finally (c) runs again on a grid
+doubled on each side, to show that peak memory does not grow with the grid.
+
+The figures are ratios from one run on this machine, not a timed test: they
+move with the disk cache, the load and the machine. A missed target is
+printed as MISS and the exit status stays 0; the exit status is 1 only when
+(b) and (c) disagree, since then the two jobs are not the same. See
+``bench/README.md``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import os
+import shutil
+import subprocess
+import sys
+import time
+from concurrent.futures import ThreadPoolExecutor
+from pathlib import Path
+
+import numpy as np
+from osgeo import gdal, osr
+
+ROOT = Path(__file__).resolve().parent.parent
+if str(ROOT) not in sys.path:
+    sys.path.insert(0, str(ROOT))
+
+from favour_plugin.raster.blocks import iter_windows  # noqa: E402
+
+gdal.UseExceptions()
+osr.UseExceptions()
+
+# -- what is built -------------------------------------------------------------
+
+#: The local transverse Mercator over open ocean of tests/helpers.py TEST_CRS.
+CRS = ("+proj=tmerc +lat_0=-48 +lon_0=-125 +k=1 +x_0=500000 +y_0=1000000 "
+       "+datum=WGS84 +units=m +no_defs")
+ORIGIN = (500000.0, 1020000.0)
+CELL = 25.0
+GENERATOR = 1  # bump when the fields change, so old inputs are rebuilt
+SEED = 20240611
+GAMMA = 0.9
+CREATION = ("TILED=YES", "BLOCKXSIZE=256", "BLOCKYSIZE=256", "COMPRESS=DEFLATE", "PREDICTOR=3",
+            "BIGTIFF=IF_SAFER", "NUM_THREADS=ALL_CPUS")
+STRIP = 256
+
+#: name, units offset, units scale, declared nodata, ramp rises (True) or falls.
+PROXIES = (
+    ("magnetic_gradient", 40.0, 15.0, -9999.0, True),
+    ("gravity_residual", 0.0, 2.5, -9999.0, True),
+    ("distance_to_faults", 3000.0, 1200.0, -9999.0, False),
+    ("potassium_ratio", 1.2, 0.3, -99999.0, True),
+    ("thorium_ratio", 8.0, 2.0, -9999.0, True),
+    ("slope_of_basement", 12.0, 4.0, -9999.0, False),
+    ("alteration_index", 0.5, 0.15, -99999.0, True),
+    ("conductivity", 150.0, 60.0, -9999.0, True),
+)
+NODATA_CELLS = 40  # scattered single cells per proxy, plus one 4 x 4 patch
+
+# Targets from the issue.
+TARGET_SPEEDUP = 15.0  # (b) / (c) at least
+TARGET_OVER_FLOOR = 1.5  # (c) / (a) at most
+TARGET_PEAK_MB = 300.0  # peak memory of (c) at most
+GROWTH_ALLOWED = 0.10  # peak at the doubled grid within 10 % of the first (our own threshold)
+TOLERANCE = 1e-5  # (b) and (c) agree within this on valid cells
+
+QGIS_PROCESS = "/usr/bin/qgis_process.bin"
+# The first one this QGIS lists is used. QGIS 3.22 has only the Python
+# qgis:rastercalculator; newer releases have a C++ port (native:rastercalc,
+# from memory) with the same EXPRESSION, LAYERS and OUTPUT parameters.
+CALCULATORS = ("native:rastercalculator", "native:rastercalc", "qgis:rastercalculator")
+
+
+def bounds(offset: float, scale: float, rises: bool) -> tuple[float, float]:
+    """Return the ramp's (lower, upper): μ = 0 at ``lower``, μ = 1 at ``upper``.
+
+    The fields have mean ``offset`` and spread about ``scale``; the ramp runs
+    from 2 spreads below to 1.5 above, so a few per cent of cells get μ = 0
+    and up to a fifth μ = 1, and most of the gamma output is not 0.
+    """
+    low, high = offset - 2.0 * scale, offset + 1.5 * scale
+    return (low, high) if rises else (high, low)
+
+
+# -- synthetic proxies --------------------------------------------------------
+
+
+def srs() -> osr.SpatialReference:
+    """Return the benchmark's CRS with x, y axis order."""
+    ref = osr.SpatialReference()
+    ref.SetFromUserInput(CRS)
+    ref.SetAxisMappingStrategy(osr.OAMS_TRADITIONAL_GIS_ORDER)
+    return ref
+
+
+class Field:
+    """A smooth random field: a sum of plane waves plus a little white noise.
+
+    Wavelengths run from 40 to 4000 cells with amplitudes rising with the
+    wavelength, so the field looks like a gridded survey; the noise (1 % of
+    the spread) keeps the low mantissa bits busy, as in real data. Values are
+    standardised (mean 0, spread about 1). Each strip of rows is computed on
+    its own from the seed, so memory stays at one strip whatever the size.
+    """
+
+    WAVES = 16
+
+    def __init__(self, seed: int) -> None:
+        rng = np.random.default_rng(seed)
+        self.seed = seed
+        wavelength = np.exp(rng.uniform(np.log(40.0), np.log(4000.0), self.WAVES))
+        angle = rng.uniform(0.0, np.pi, self.WAVES)
+        self.kx = 2 * np.pi * np.cos(angle) / wavelength
+        self.ky = 2 * np.pi * np.sin(angle) / wavelength
+        self.phase = rng.uniform(0.0, 2 * np.pi, self.WAVES)
+        amplitude = (wavelength / 4000.0) ** 0.5
+        self.amplitude = amplitude / np.sqrt(0.5 * np.sum(amplitude ** 2))
+
+    def strip(self, row: int, rows: int, width: int) -> np.ndarray:
+        """Return rows ``row`` to ``row + rows`` of the field (float64, standardised)."""
+        x = np.arange(width, dtype=np.float64)
+        y = np.arange(row, row + rows, dtype=np.float64)
+        out = np.zeros((rows, width))
+        for a, kx, ky, ph in zip(self.amplitude, self.kx, self.ky, self.phase):
+            # cos(kx x + ky y + φ) = cos(kx x + φ) cos(ky y) − sin(kx x + φ) sin(ky y)
+            out += np.outer(a * np.cos(ky * y), np.cos(kx * x + ph))
+            out -= np.outer(a * np.sin(ky * y), np.sin(kx * x + ph))
+        noise = np.random.default_rng([self.seed, row]).standard_normal((rows, width))
+        return out + 0.01 * noise
+
+
+def nodata_cells(seed: int, size: int) -> list[tuple[int, int]]:
+    """Return the (row, column) cells a proxy leaves as nodata: scattered cells and a 4 x 4 patch."""
+    rng = np.random.default_rng([seed, 1])
+    cells = [(int(r), int(c)) for r, c in rng.integers(0, size, (NODATA_CELLS, 2))]
+    r0, c0 = (int(v) for v in rng.integers(0, size - 4, 2))
+    cells += [(r0 + i, c0 + j) for i in range(4) for j in range(4)]
+    return cells
+
+
+def write_proxy(path: Path, index: int, size: int) -> set[tuple[int, int]]:
+    """Write proxy ``index`` as a ``size`` x ``size`` GeoTIFF; return its nodata cells."""
+    name, offset, scale, nodata, _ = PROXIES[index]
+    seed = SEED + 101 * index
+    field = Field(seed)
+    holes = nodata_cells(seed, size)
+    tmp = path.with_suffix(".partial.tif")
+    ds = gdal.GetDriverByName("GTiff").Create(str(tmp), size, size, 1, gdal.GDT_Float32,
+                                              list(CREATION))
+    ds.SetGeoTransform((ORIGIN[0], CELL, 0.0, ORIGIN[1], 0.0, -CELL))
+    ds.SetProjection(srs().ExportToWkt())
+    band = ds.GetRasterBand(1)
+    band.SetNoDataValue(nodata)
+    band.SetDescription(name)
+    for row in range(0, size, STRIP):
+        rows = min(STRIP, size - row)
+        values = (offset + scale * field.strip(row, rows, size)).astype(np.float32)
+        for r, c in holes:
+            if row <= r < row + rows:
+                values[r - row, c] = nodata
+        band.WriteArray(values, 0, row)
+    band = None
+    ds = None
+    os.replace(tmp, path)
+    return set(holes)
+
+
+def manifest_for(size: int) -> dict:
+    """Return what a set of inputs of ``size`` is built from (reused only if it matches)."""
+    return {"generator": GENERATOR, "seed": SEED, "size": size, "cell": CELL,
+            "proxies": [list(p) for p in PROXIES]}
+
+
+def reusable(folder: Path, old: dict, wanted: dict) -> bool:
+    """Return True if the inputs in ``folder`` were built as ``wanted`` and are all there."""
+    files = old.get("files", [])
+    return ({k: old.get(k) for k in wanted} == wanted and len(files) == len(PROXIES)
+            and all((folder / f["file"]).is_file()
+                    and (folder / f["file"]).stat().st_size == f["bytes"] for f in files))
+
+
+def build_inputs(folder: Path, size: int) -> dict:
+    """Build (or reuse) the eight proxies and the tree file; return the manifest."""
+    folder.mkdir(parents=True, exist_ok=True)
+    manifest_file = folder / "manifest.json"
+    wanted = manifest_for(size)
+    write_tree(folder / "tree.json")
+    if manifest_file.exists():
+        old = json.loads(manifest_file.read_text())
+        if reusable(folder, old, wanted):
+            print(f"reusing the {size} x {size} proxies in {folder}")
+            return old
+    print(f"building eight {size} x {size} float32 proxies in {folder} ...", flush=True)
+    start = time.perf_counter()
+    files, holes = [], set()
+    for i, proxy in enumerate(PROXIES):
+        path = folder / f"{proxy[0]}.tif"
+        holes |= write_proxy(path, i, size)
+        files.append({"file": path.name, "bytes": path.stat().st_size})
+    raw = size * size * 4
+    manifest = {**wanted, "files": files, "nodata_union": len(holes),
+                "compression": raw * len(files) / sum(f["bytes"] for f in files)}
+    manifest_file.write_text(json.dumps(manifest, indent=1))
+    print(f"  built in {time.perf_counter() - start:.1f} s; DEFLATE ratio "
+          f"{manifest['compression']:.2f}, {len(holes)} cells nodata in some proxy")
+    return manifest
+
+
+def write_tree(path: Path) -> None:
+    """Write the equivalent Favour tree: eight linear leaves under a gamma root."""
+    leaves = []
+    for name, offset, scale, _, rises in PROXIES:
+        lower, upper = bounds(offset, scale, rises)
+        leaves.append({"name": name, "proxy": {"path": f"{name}.tif"},
+                       "membership": {"type": "linear", "lower": lower, "upper": upper}})
+    doc = {"format": "favour-tree", "version": 1, "name": "Benchmark gamma tree",
+           "root": {"name": "Favourability", "operator": {"type": "gamma", "gamma": GAMMA},
+                    "children": leaves}}
+    path.write_text(json.dumps(doc, indent=2), encoding="utf-8")
+
+
+def input_paths(folder: Path) -> list[str]:
+    """Return the eight proxies' paths in tree order."""
+    return [str(folder / f"{p[0]}.tif") for p in PROXIES]
+
+
+# -- children: each stage in a process of its own -----------------------------
+
+
+class Measure:
+    """Wall time (s) and peak resident memory (MB) of one child process."""
+
+    def __init__(self, label: str, seconds: float, peak_mb: float, inner: float | None = None):
+        self.label = label
+        self.seconds = seconds
+        self.peak_mb = peak_mb
+        self.inner = inner  # seconds the child measured itself, without start-up
+
+    def __repr__(self) -> str:
+        return f"{self.label}: {self.seconds:.1f} s, {self.peak_mb:.0f} MB"
+
+
+# A small launcher between this script and each measured child. ``ru_maxrss`` of
+# a child started straight from here would start at this script's own peak
+# (Linux carries the peak of the address space the child was forked, or
+# vforked, from across exec), so every child is forked from this small
+# interpreter instead, which reports its child's ru_maxrss (KiB) to a file.
+LAUNCHER = """\
+import os, sys
+pid = os.fork()
+if pid == 0:
+    try:
+        os.execvp(sys.argv[2], sys.argv[2:])
+    finally:
+        os._exit(127)
+_, status, usage = os.wait4(pid, 0)
+with open(sys.argv[1], "w") as out:
+    out.write(str(usage.ru_maxrss))
+sys.exit(os.waitstatus_to_exitcode(status))
+"""
+
+
+def run_child(label: str, args: list[str], env: dict, log: Path, result: Path | None = None,
+              quiet: bool = False) -> Measure:
+    """Run ``args`` as a child; return its wall time and its own peak RSS.
+
+    The child is started through :data:`LAUNCHER`, whose own size (about
+    10 MB) bounds the error of the peak. The child's output goes to ``log``;
+    a non-zero exit stops the benchmark.
+    """
+    log.parent.mkdir(parents=True, exist_ok=True)
+    rss_file = log.with_suffix(".maxrss")
+    for stale in (result, rss_file):
+        if stale is not None and stale.exists():
+            stale.unlink()
+    with open(log, "w") as out:
+        start = time.perf_counter()
+        code = subprocess.call([sys.executable, "-S", "-c", LAUNCHER, str(rss_file), *args],
+                               env=env, stdout=out, stderr=subprocess.STDOUT,
+                               stdin=subprocess.DEVNULL)
+        seconds = time.perf_counter() - start
+    if code != 0:
+        tail = log.read_text(errors="replace")[-3000:]
+        sys.exit(f"{label} failed (exit {code}); the end of {log}:\n{tail}")
+    inner = json.loads(result.read_text())["seconds"] if result is not None else None
+    measure = Measure(label, seconds, int(rss_file.read_text()) / 1024.0, inner)
+    if not quiet:
+        print(f"  {measure}" + (f" (inside the child {inner:.1f} s)" if inner is not None else ""),
+              flush=True)
+    return measure
+
+
+def python_child(kind: str, *args: str) -> list[str]:
+    """Return the command running this script's ``--child kind`` in a new interpreter."""
+    return [sys.executable, str(Path(__file__).resolve()), "--child", kind, *args]
+
+
+def child_idle(result: str) -> None:
+    """Import what the other Python children import, and stop."""
+    start = time.perf_counter()
+    from favour_plugin.raster import engine, writer  # noqa: F401
+
+    Path(result).write_text(json.dumps({"seconds": time.perf_counter() - start}))
+
+
+def child_floor(result: str, output: str, threads: str, *inputs: str) -> None:
+    """Read the inputs block by block and write one raster; no computation (stage a)."""
+    from favour_plugin.raster.gdalenv import gdal_job
+    from favour_plugin.raster.grid import Grid
+    from favour_plugin.raster.writer import RasterWriter
+
+    start = time.perf_counter()
+    with gdal_job():
+        first = gdal.Open(inputs[0])
+        grid = Grid.from_dataset(first, inputs[0])
+        writer = RasterWriter(output, grid, "input/output floor")
+        windows = iter_windows(grid.width, grid.height)
+        if int(threads) <= 1:
+            # Keep the datasets in a variable: a band whose dataset is freed crashes GDAL.
+            datasets = [gdal.Open(p) for p in inputs]
+            bands = [ds.GetRasterBand(1) for ds in datasets]
+            for window in windows:
+                blocks = [band.ReadAsArray(*window) for band in bands]
+                writer.write(window, blocks[0])
+        else:
+            _floor_threads(writer, windows, inputs, int(threads))
+        writer.commit()
+    Path(result).write_text(json.dumps({"seconds": time.perf_counter() - start}))
+
+
+def _floor_threads(writer, windows, inputs, threads: int) -> None:
+    """Read on ``threads`` workers, each with its own handles; write in order (as the engine)."""
+    import threading
+    from collections import deque
+
+    local = threading.local()
+    opened = []
+
+    def read(window):
+        if not hasattr(local, "datasets"):
+            local.datasets = [gdal.Open(p) for p in inputs]
+            opened.append(local.datasets)
+        return window, [ds.GetRasterBand(1).ReadAsArray(*window) for ds in local.datasets]
+
+    pending: deque = deque()
+    with ThreadPoolExecutor(max_workers=threads) as pool:
+        while True:
+            while len(pending) < 2 * threads:
+                window = next(windows, None)
+                if window is None:
+                    break
+                pending.append(pool.submit(read, window))
+            if not pending:
+                break
+            window, blocks = pending.popleft().result()
+            writer.write(window, blocks[0])
+    opened.clear()
+
+
+def child_core(result: str, tree: str, output: str, threads: str) -> None:
+    """Evaluate the tree with ``raster.engine.evaluate_tree_file`` (stage c, core path)."""
+    from favour_plugin.raster.engine import evaluate_tree_file
+
+    start = time.perf_counter()
+    evaluate_tree_file(tree, output, threads=int(threads))
+    Path(result).write_text(json.dumps({"seconds": time.perf_counter() - start}))
+
+
+def child_profile(result: str, tree: str, output: str, report: str) -> None:
+    """Profile the core path on one thread with cProfile, and time its steps block by block.
+
+    The engine computes blocks in pool threads, which a plain cProfile run
+    does not see; so every thread started during the run gets a profiler of
+    its own (``threading.setprofile``) and the statistics are merged. The
+    engine runs with one worker thread here, so the times add up to the wall
+    time. The step timings then repeat the engine's per-block work (read,
+    membership, overlay, statistics, write) with the package's own
+    functions, timed from outside.
+    """
+    import cProfile
+    import io
+    import pstats
+    import threading
+
+    from favour_plugin.raster.engine import evaluate_tree_file
+
+    profilers: list[cProfile.Profile] = []
+
+    def profile_thread(*_) -> None:
+        sys.setprofile(None)
+        profiler = cProfile.Profile()
+        profilers.append(profiler)
+        profiler.enable()
+
+    main_profiler = cProfile.Profile()
+    threading.setprofile(profile_thread)
+    start = time.perf_counter()
+    main_profiler.enable()
+    evaluate_tree_file(tree, output, threads=1)
+    main_profiler.disable()
+    seconds = time.perf_counter() - start
+    threading.setprofile(None)
+    text = io.StringIO()
+    stats = pstats.Stats(main_profiler, stream=text)
+    for profiler in profilers:
+        stats.add(profiler)
+    stats.sort_stats("tottime").print_stats(30)
+    steps = _time_steps(tree, output + ".steps.tif")
+    body = text.getvalue().replace(str(ROOT) + os.sep, "")
+    note = ("('acquire' of '_thread.lock' is the calling thread waiting for the block worker; "
+            "GDAL's DEFLATE threads are not Python threads and are not seen)\n")
+    Path(report).write_text(f"core path on 1 thread under cProfile (all threads): {seconds:.1f} s\n"
+                            + note + body + "\n" + steps)
+    Path(result).write_text(json.dumps({"seconds": seconds}))
+
+
+def _time_steps(tree_file: str, output: str) -> str:
+    """Time the engine's per-block steps, one thread, with the package's functions."""
+    from favour_plugin.core import lineage as lin
+    from favour_plugin.core import overlay
+    from favour_plugin.core.tree import Tree
+    from favour_plugin.raster.gdalenv import gdal_job
+    from favour_plugin.raster.grid import Grid
+    from favour_plugin.raster.sources import read_window
+    from favour_plugin.raster.writer import RasterWriter
+
+    tree = Tree.load(tree_file)
+    plan = tree.compile()
+    paths = [str(leaf.proxy.resolve(tree.base_dir)) for leaf in plan.leaves]
+    gamma = plan.steps[0].operator.gamma
+    timers = dict.fromkeys(
+        ("read (ReadAsArray + float64 + nodata mask)", "membership (8 linear)",
+         "overlay: fuzzy_product", "overlay: fuzzy_sum", "overlay: power and multiply",
+         "statistics of 9 arrays (NodeStatistics.of_block)", "write (float32, nodata, DEFLATE)"), 0.0)
+    names = list(timers)
+    with gdal_job():
+        datasets = [gdal.Open(p) for p in paths]
+        bands = [ds.GetRasterBand(1) for ds in datasets]
+        nodata = [band.GetNoDataValue() for band in bands]
+        grid = Grid.from_dataset(datasets[0], paths[0])
+        writer = RasterWriter(output, grid, "steps")
+        for window in iter_windows(grid.width, grid.height):
+            t0 = time.perf_counter()
+            values = [read_window(b, window, nd) for b, nd in zip(bands, nodata)]
+            t1 = time.perf_counter()
+            mus = [leaf.membership(v) for leaf, v in zip(plan.leaves, values)]
+            t2 = time.perf_counter()
+            product = overlay.fuzzy_product(mus)
+            t3 = time.perf_counter()
+            total = overlay.fuzzy_sum(mus)
+            t4 = time.perf_counter()
+            mu = np.power(total, gamma) * np.power(product, 1.0 - gamma)
+            t5 = time.perf_counter()
+            for array in [*mus, mu]:
+                lin.NodeStatistics.of_block(array)
+            t6 = time.perf_counter()
+            writer.write(window, mu)
+            t7 = time.perf_counter()
+            for name, a, b in zip(names, (t0, t1, t2, t3, t4, t5, t6), (t1, t2, t3, t4, t5, t6, t7)):
+                timers[name] += b - a
+        writer.commit()
+    os.unlink(output)
+    total_time = sum(timers.values())
+    lines = [f"per-block steps on 1 thread, timed from outside ({total_time:.1f} s in all):"]
+    lines += [f"  {name:<52} {t:7.2f} s  {100 * t / total_time:5.1f} %" for name, t in timers.items()]
+    return "\n".join(lines) + "\n"
+
+
+CHILDREN = {"idle": child_idle, "floor": child_floor, "core": child_core, "profile": child_profile}
+
+
+# -- QGIS ---------------------------------------------------------------------
+
+
+class Qgis:
+    """Runs ``qgis_process.bin`` with an isolated profile, optionally with Favour enabled."""
+
+    def __init__(self, profile: Path, with_plugin: bool) -> None:
+        profile.mkdir(parents=True, exist_ok=True)
+        self.env = dict(os.environ, QGIS_CUSTOM_CONFIG_PATH=str(profile), QT_QPA_PLATFORM="offscreen")
+        if with_plugin:
+            self.env["QGIS_PLUGINPATH"] = str(ROOT)
+            done = subprocess.run([QGIS_PROCESS, "plugins", "enable", "favour_plugin"],
+                                  env=self.env, capture_output=True, text=True, timeout=300)
+            # A profile kept from an earlier run answers "already enabled" with exit 1.
+            if done.returncode != 0 and "already enabled" not in done.stdout + done.stderr:
+                sys.exit(f"cannot enable favour_plugin in {profile}:\n{done.stdout}{done.stderr}")
+
+    def algorithms(self) -> str:
+        """Return the output of ``qgis_process.bin list``."""
+        return subprocess.run([QGIS_PROCESS, "list"], env=self.env, check=True,
+                              capture_output=True, text=True, timeout=300).stdout
+
+    def run(self, label: str, algorithm: str, params: list[tuple[str, object]], log: Path) -> Measure:
+        """Run one algorithm; ``params`` may repeat a key (a multi-layer parameter)."""
+        args = [QGIS_PROCESS, "run", algorithm, "--"] + [f"{k}={v}" for k, v in params]
+        return run_child(label, args, self.env, log)
+
+
+def calculator_id(qgis: Qgis) -> str:
+    """Return the raster calculator this QGIS has (the native one where it exists)."""
+    listing = qgis.algorithms()
+    for candidate in CALCULATORS:
+        if f"{candidate}\t" in listing:
+            return candidate
+    sys.exit("this QGIS has no raster calculator algorithm (" + ", ".join(CALCULATORS) + ")")
+
+
+def gamma_expression(refs: list[str], gamma: float) -> str:
+    """Return the raster calculator expression of fuzzy gamma over ``refs`` (``name@1`` terms).
+
+    (1 − ∏(1 − μi))^γ · (∏ μi)^(1 − γ), written out term by term.
+    """
+    complement = " * ".join(f"(1 - {r})" for r in refs)
+    product = " * ".join(refs)
+    return f"((1 - ({complement})) ^ {gamma:g}) * (({product}) ^ {1.0 - gamma:g})"
+
+
+def qgis_stage(qgis: Qgis, calculator: str, inputs: list[str], folder: Path, logs: Path
+               ) -> tuple[list[Measure], str]:
+    """Stage (b): eight fuzzify runs and one raster calculator run; return the measures and output."""
+    folder.mkdir(parents=True, exist_ok=True)
+    measures, refs, layers = [], [], []
+    for i, (path, (name, offset, scale, _, rises)) in enumerate(zip(inputs, PROXIES), start=1):
+        lower, upper = bounds(offset, scale, rises)
+        out = folder / f"mu_{i}.tif"
+        measures.append(qgis.run(f"(b) fuzzify {name}", "native:fuzzifyrasterlinearmembership",
+                                 [("INPUT", path), ("BAND", 1), ("FUZZYLOWBOUND", repr(lower)),
+                                  ("FUZZYHIGHBOUND", repr(upper)), ("OUTPUT", out)],
+                                 logs / f"b-fuzzify-{i}.log"))
+        # The calculator maps a layer file to its base name without extension (``mu_1@1``).
+        refs.append(f"mu_{i}@1")
+        layers.append(("LAYERS", out))
+    output = folder / "gamma.tif"
+    measures.append(qgis.run(f"(b) {calculator} (gamma)", calculator,
+                             [("EXPRESSION", gamma_expression(refs, GAMMA)), *layers,
+                              ("OUTPUT", output)], logs / "b-calculator.log"))
+    return measures, str(output)
+
+
+# -- comparison ---------------------------------------------------------------
+
+
+def compare(first: str, second: str) -> dict:
+    """Compare two rasters block by block, each with its own declared nodata.
+
+    QGIS's fuzzify writes nodata as -9999 and its raster calculator as
+    -3.4028235e38; Favour writes -9999. Each file's declared value is read
+    back as missing, so only the cells count.
+    """
+    a_ds, b_ds = gdal.Open(first), gdal.Open(second)
+    if (a_ds.RasterXSize, a_ds.RasterYSize) != (b_ds.RasterXSize, b_ds.RasterYSize):
+        return {"same_grid": False, "detail": f"{a_ds.RasterXSize} x {a_ds.RasterYSize} against "
+                                              f"{b_ds.RasterXSize} x {b_ds.RasterYSize}"}
+    ga, gb = a_ds.GetGeoTransform(), b_ds.GetGeoTransform()
+    same = all(abs(x - y) <= 1e-6 * CELL for x, y in zip(ga, gb))
+    a_band, b_band = a_ds.GetRasterBand(1), b_ds.GetRasterBand(1)
+    a_nd, b_nd = a_band.GetNoDataValue(), b_band.GetNoDataValue()
+    largest, mismatch, a_missing, b_missing, valid = 0.0, 0, 0, 0, 0
+    for window in iter_windows(a_ds.RasterXSize, a_ds.RasterYSize):
+        a = a_band.ReadAsArray(*window).astype(np.float64)
+        b = b_band.ReadAsArray(*window).astype(np.float64)
+        a_nan = np.isnan(a) | (a == a_nd) if a_nd is not None else np.isnan(a)
+        b_nan = np.isnan(b) | (b == b_nd) if b_nd is not None else np.isnan(b)
+        both = ~a_nan & ~b_nan
+        mismatch += int(np.count_nonzero(a_nan != b_nan))
+        a_missing += int(np.count_nonzero(a_nan))
+        b_missing += int(np.count_nonzero(b_nan))
+        valid += int(np.count_nonzero(both))
+        if both.any():
+            largest = max(largest, float(np.max(np.abs(a[both] - b[both]))))
+    return {"same_grid": same, "max_abs_diff": largest, "nodata_mismatch": mismatch,
+            "first_nodata": a_missing, "second_nodata": b_missing, "valid": valid,
+            "first_nodata_value": a_nd, "second_nodata_value": b_nd}
+
+
+# -- the run ------------------------------------------------------------------
+
+
+def folder_bytes(folder: Path) -> int:
+    """Return the bytes of the files directly in ``folder``."""
+    return sum(p.stat().st_size for p in folder.iterdir() if p.is_file())
+
+
+def fresh(path: Path) -> str:
+    """Remove an earlier output at ``path`` (and its sidecars); return the path as text."""
+    for p in path.parent.glob(path.name + "*"):
+        p.unlink()
+    for p in path.parent.glob(path.stem + ".qml"):
+        p.unlink()
+    return str(path)
+
+
+def mb(value: float) -> str:
+    """Format megabytes."""
+    return f"{value:.0f} MB"
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Build the inputs, run every stage, print the measures, the ratios and PASS/MISS."""
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0],
+                                     formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.add_argument("--workdir", default=str(ROOT / "build" / "bench"),
+                        help="folder for inputs and outputs (default: build/bench/)")
+    parser.add_argument("--size", type=int, default=6000,
+                        help="proxies are SIZE x SIZE cells (default 6000)")
+    parser.add_argument("--no-double", action="store_true",
+                        help="skip the run of (c) on a grid doubled on each side")
+    parser.add_argument("--profile", action="store_true",
+                        help="also profile the core path (cProfile, 1 thread) and time its steps")
+    parser.add_argument("--threads", type=int, default=2,
+                        help="threads for the core path and the threaded floor (default 2, the "
+                             "engine's default, which the qgis_process run uses)")
+    parser.add_argument("--clean", action="store_true",
+                        help="remove the work folder (inputs and outputs) and stop")
+    parser.add_argument("--child", nargs=argparse.REMAINDER, help=argparse.SUPPRESS)
+    args = parser.parse_args(argv)
+
+    if args.child:
+        CHILDREN[args.child[0]](*args.child[1:])
+        return 0
+    work = Path(args.workdir).resolve()
+    if args.clean:
+        if work.exists():
+            shutil.rmtree(work)
+            print(f"removed {work}")
+        else:
+            print(f"nothing to remove: {work} does not exist")
+        return 0
+    if args.size < 64:
+        parser.error("--size must be at least 64")
+    if not os.path.exists(QGIS_PROCESS):
+        sys.exit(f"{QGIS_PROCESS} is not installed; stage (b) and (c) need it")
+    return run(work, args.size, not args.no_double, args.profile, args.threads)
+
+
+def run(work: Path, size: int, double: bool, profile: bool, threads: int) -> int:
+    """Run the benchmark in ``work`` for ``size`` x ``size`` proxies; return the exit status."""
+    load = os.getloadavg()
+    env = dict(os.environ, QT_QPA_PLATFORM="offscreen")
+    logs = work / "logs"
+    result = work / "logs" / "child-result.json"
+    inputs_dir = work / f"inputs-{size}"
+    out = work / f"outputs-{size}"
+    out.mkdir(parents=True, exist_ok=True)
+    manifest = build_inputs(inputs_dir, size)
+    inputs = input_paths(inputs_dir)
+    tree = str(inputs_dir / "tree.json")
+    tiny_dir = work / "inputs-64"
+    build_inputs(tiny_dir, 64)
+    m: dict[str, Measure] = {}
+
+    print("\nidle children (start-up, imports, a 64 x 64 job):", flush=True)
+    m["true"] = run_child("measurement floor (/bin/true through the launcher)", ["true"], env,
+                          logs / "true.log")
+    m["idle_py"] = run_child("idle python + GDAL + favour_plugin", python_child("idle", str(result)),
+                             env, logs / "idle-python.log", result)
+    plain = Qgis(work / "qgis-profile-plain", with_plugin=False)
+    favour = Qgis(work / "qgis-profile-favour", with_plugin=True)
+    m["idle_qgis"] = plain.run("idle qgis_process (fuzzify 64 x 64)",
+                               "native:fuzzifyrasterlinearmembership",
+                               [("INPUT", input_paths(tiny_dir)[0]), ("BAND", 1),
+                                ("FUZZYLOWBOUND", 0), ("FUZZYHIGHBOUND", 1),
+                                ("OUTPUT", fresh(out / "idle-fuzzify.tif"))], logs / "idle-qgis.log")
+    m["idle_favour"] = favour.run("idle qgis_process + Favour (evaluatetree 64 x 64)",
+                                  "favour:evaluatetree",
+                                  [("TREE", tiny_dir / "tree.json"),
+                                   ("OUTPUT", fresh(out / "idle-favour.tif"))],
+                                  logs / "idle-favour.log")
+
+    print(f"\n(a) I/O floor, {size} x {size}: read eight block by block, write one raster:",
+          flush=True)
+    m["a"] = run_child("(a) floor, 1 thread",
+                       python_child("floor", str(result), fresh(out / "floor.tif"), "1", *inputs),
+                       env, logs / "a-floor.log", result)
+    m["a2"] = run_child(f"(a2) floor, {threads} threads (for reference)",
+                        python_child("floor", str(result), fresh(out / "floor2.tif"), str(threads),
+                                     *inputs), env, logs / "a2-floor.log", result)
+
+    calculator = calculator_id(plain)
+    print(f"\n(b) QGIS built-ins: 8 x native:fuzzifyrasterlinearmembership + {calculator}:",
+          flush=True)
+    for i in range(1, 9):
+        fresh(out / "qgis" / f"mu_{i}.tif")
+    fresh(out / "qgis" / "gamma.tif")
+    b_runs, b_output = qgis_stage(plain, calculator, inputs, out / "qgis", logs)
+    m["b"] = Measure("(b) QGIS built-ins, 9 runs", sum(r.seconds for r in b_runs),
+                     max(r.peak_mb for r in b_runs))
+    print(f"  {m['b']} (peak of the largest run)")
+
+    print("\n(c) Favour:", flush=True)
+    c_output = fresh(out / "favour.tif")
+    m["c"] = favour.run("(c) favour:evaluatetree via qgis_process.bin", "favour:evaluatetree",
+                        [("TREE", tree), ("OUTPUT", c_output)], logs / "c-qgis-process.log")
+    core_output = fresh(out / "core.tif")
+    m["core"] = run_child(f"(c) core path evaluate_tree_file, {threads} threads",
+                          python_child("core", str(result), tree, core_output, str(threads)),
+                          env, logs / "c-core.log", result)
+
+    print("\nagreement of (b) and (c):", flush=True)
+    agree = compare(b_output, c_output)
+    same_core = compare(core_output, c_output)
+    print(f"  grid identical: {agree['same_grid']}; valid cells {agree.get('valid', 0)}; "
+          f"max |b - c| = {agree.get('max_abs_diff', float('nan')):.3g}; nodata mismatches "
+          f"{agree.get('nodata_mismatch', '?')} (nodata cells: b {agree.get('first_nodata')}, "
+          f"c {agree.get('second_nodata')}, expected {manifest['nodata_union']}; declared "
+          f"nodata b {agree.get('first_nodata_value')}, c {agree.get('second_nodata_value')})")
+    print(f"  core path against qgis_process run: max diff {same_core.get('max_abs_diff')}, "
+          f"nodata mismatches {same_core.get('nodata_mismatch')}")
+
+    if profile:
+        print("\nprofile of the core path (cProfile, 1 thread; then per-block steps):", flush=True)
+        report = logs / "profile.txt"
+        m["profile"] = run_child("core path under cProfile, 1 thread",
+                                 python_child("profile", str(result), tree,
+                                              fresh(out / "profile.tif"), str(report)),
+                                 env, logs / "profile.log", result)
+        print(report.read_text())
+
+    double_note = "skipped (--no-double)"
+    if double:
+        double_note = run_double(work, size, inputs_dir, favour, env, logs, result, threads, m)
+
+    summary(m, agree, manifest, size, threads, calculator, double_note, load)
+    print(f"\ninputs and outputs are kept in {work} for the next run; "
+          "`bench/bench_evaluate.py --clean` removes them")
+    # A missed target is a finding, not a failure; disagreeing outputs mean the
+    # two jobs differ, and then no ratio means anything.
+    agreed = (agree.get("same_grid") and agree.get("max_abs_diff", math.inf) <= TOLERANCE
+              and agree.get("nodata_mismatch") == 0)
+    return 0 if agreed else 1
+
+
+def run_double(work: Path, size: int, inputs_dir: Path, favour: Qgis, env: dict, logs: Path,
+               result: Path, threads: int, m: dict) -> str:
+    """Run (c) on the grid doubled on each side, if the disk has room; return a note."""
+    big = 2 * size
+    big_dir = work / f"inputs-{big}"
+    reused = (big_dir / "manifest.json").exists()
+    need = 0 if reused else 4 * folder_bytes(inputs_dir)
+    need += 2 * big * big * 4  # two outputs, at worst uncompressed
+    free = shutil.disk_usage(work).free
+    print(f"\n(c) on the doubled grid, {big} x {big}: needs about {need / 2**30:.1f} GiB, "
+          f"{free / 2**30:.1f} GiB free", flush=True)
+    if free < 1.2 * need:
+        print("  skipped: not enough free disk")
+        return f"skipped: {need / 2**30:.1f} GiB needed, {free / 2**30:.1f} GiB free"
+    build_inputs(big_dir, big)
+    tree = str(big_dir / "tree.json")
+    out = work / f"outputs-{big}"
+    out.mkdir(parents=True, exist_ok=True)
+    m["c2"] = favour.run("(c) favour:evaluatetree via qgis_process.bin, doubled grid",
+                         "favour:evaluatetree", [("TREE", tree), ("OUTPUT", fresh(out / "favour.tif"))],
+                         logs / "c2-qgis-process.log")
+    m["core2"] = run_child(f"(c) core path, doubled grid, {threads} threads",
+                           python_child("core", str(result), tree, fresh(out / "core.tif"),
+                                        str(threads)), env, logs / "c2-core.log", result)
+    return "run"
+
+
+def verdict(ok: bool) -> str:
+    """Return PASS or MISS."""
+    return "PASS" if ok else "MISS"
+
+
+def summary(m: dict, agree: dict, manifest: dict, size: int, threads: int, calculator: str,
+            double_note: str, load: tuple[float, float, float]) -> None:
+    """Print the table of measures, the ratios against the targets, and PASS/MISS."""
+    idle_py, idle_qgis, idle_favour = m["idle_py"], m["idle_qgis"], m["idle_favour"]
+    print("\n" + "=" * 96)
+    print(f"SUMMARY  {size} x {size} float32 x 8 proxies (DEFLATE ratio {manifest['compression']:.2f}), "
+          f"gamma {GAMMA}, {os.cpu_count()} cores")
+    print(f"(c) is favour:evaluatetree run with {QGIS_PROCESS} (isolated profile, plugin from "
+          f"{ROOT}); the core path is evaluate_tree_file in a Python child, {threads} threads.")
+    print("-" * 96)
+    print(f"{'stage':<58}{'wall s':>9}{'peak RSS':>11}{'over idle':>11}")
+    rows = [("measurement floor (/bin/true through the launcher)", m["true"], None),
+            ("idle python + GDAL + favour_plugin", idle_py, None),
+            ("idle qgis_process (fuzzify 64 x 64)", idle_qgis, None),
+            ("idle qgis_process + Favour (evaluatetree 64 x 64)", idle_favour, None),
+            ("(a) I/O floor, 1 thread", m["a"], idle_py),
+            (f"(a2) I/O floor, {threads} threads (reference only)", m["a2"], idle_py),
+            (f"(b) QGIS: 8 fuzzify + {calculator}, 9 runs", m["b"], idle_qgis),
+            ("(c) favour:evaluatetree via qgis_process", m["c"], idle_favour),
+            ("(c) core path evaluate_tree_file", m["core"], idle_py)]
+    if "c2" in m:
+        rows += [(f"(c) via qgis_process, doubled grid {2 * size} x {2 * size}", m["c2"], idle_favour),
+                 ("(c) core path, doubled grid", m["core2"], idle_py)]
+    if "profile" in m:
+        rows.append(("core path under cProfile, 1 thread (not a target)", m["profile"], idle_py))
+    for label, measure, idle in rows:
+        over = "" if idle is None else f"{measure.peak_mb - idle.peak_mb:+.0f} MB"
+        print(f"{label:<58}{measure.seconds:>9.1f}{mb(measure.peak_mb):>11}{over:>11}")
+    print("-" * 96)
+
+    b, c, a, core = m["b"], m["c"], m["a"], m["core"]
+    speedup = b.seconds / c.seconds
+    over_floor = c.seconds / a.seconds
+    # Start-up taken out: each qgis_process run pays the idle run's time once.
+    b_net = b.seconds - 9 * idle_qgis.seconds
+    c_net = c.seconds - idle_favour.seconds
+    checks = [
+        (f"(b)/(c) >= {TARGET_SPEEDUP:g}", f"{speedup:.1f}", speedup >= TARGET_SPEEDUP),
+        (f"(c)/(a) <= {TARGET_OVER_FLOOR:g}", f"{over_floor:.2f}", over_floor <= TARGET_OVER_FLOOR),
+        (f"peak RSS of (c) <= {TARGET_PEAK_MB:g} MB (whole qgis_process)", mb(c.peak_mb),
+         c.peak_mb <= TARGET_PEAK_MB),
+        (f"  the same over idle qgis_process + Favour <= {TARGET_PEAK_MB:g} MB",
+         f"{c.peak_mb - idle_favour.peak_mb:+.0f} MB",
+         c.peak_mb - idle_favour.peak_mb <= TARGET_PEAK_MB),
+        (f"(b), (c) agree within {TOLERANCE:g}, same nodata",
+         f"max {agree.get('max_abs_diff', float('nan')):.2g}, {agree.get('nodata_mismatch')} mism.",
+         bool(agree.get("same_grid")) and agree.get("max_abs_diff", math.inf) <= TOLERANCE
+         and agree.get("nodata_mismatch") == 0),
+    ]
+    if "c2" in m:
+        checks.append((f"peak RSS of (c) on {2 * size}^2 within {100 * GROWTH_ALLOWED:.0f}% of "
+                       f"{size}^2 (does not grow)", f"{mb(m['c2'].peak_mb)} vs {mb(c.peak_mb)}",
+                       m["c2"].peak_mb <= c.peak_mb * (1 + GROWTH_ALLOWED)))
+    print(f"{'target':<62}{'measured':>24}{'':>4}verdict")
+    for label, value, ok in checks:
+        print(f"{label:<62}{value:>24}{'':>4}{verdict(ok)}")
+    if "c2" not in m:
+        print(f"{'peak RSS on the doubled grid':<62}{double_note:>24}")
+    print("-" * 96)
+    print("for reading (not targets):")
+    print(f"  (b)/(c) with qgis_process start-up taken out (9 x {idle_qgis.seconds:.1f} s, "
+          f"1 x {idle_favour.seconds:.1f} s): {b_net / max(c_net, 1e-9):.1f}")
+    print(f"  (b)/core path: {b.seconds / core.seconds:.1f}; core path/(a): "
+          f"{core.seconds / a.seconds:.2f}; inside the children core/(a): "
+          f"{core.inner / a.inner:.2f}; (c)/(a2): {c.seconds / m['a2'].seconds:.2f}")
+    print(f"  peak RSS over idle: (c) {c.peak_mb - idle_favour.peak_mb:+.0f} MB, core path "
+          f"{core.peak_mb - idle_py.peak_mb:+.0f} MB"
+          + (f"; doubled grid: (c) {m['c2'].peak_mb - idle_favour.peak_mb:+.0f} MB, core path "
+             f"{m['core2'].peak_mb - idle_py.peak_mb:+.0f} MB" if "c2" in m else ""))
+    print(f"  load average (1 min) at the start {load[0]:.2f}, at the end {os.getloadavg()[0]:.2f}"
+          " (2 cores: anything above 0.5 at the start means something else was running)")
+    print("  one run on one machine: times move with the disk cache and the load; run again "
+          "before drawing a conclusion from a near miss")
+    print("=" * 96)
+
+
+if __name__ == "__main__":
+    sys.exit(main())
