@@ -368,3 +368,39 @@ def test_windows_cover_the_grid_exactly_once():
         for w in iter_windows(width, height):
             seen[w.row_off:w.row_off + w.height, w.col_off:w.col_off + w.width] += 1
         assert (seen == 1).all()
+
+
+def test_quick_look_coarsens_the_grid_and_records_it(layers):
+    """max_cells enlarges cells by a whole factor; the lineage says from what and by how much."""
+    folder, paths, _ = layers
+    result = evaluate_tree(Tree.from_dict(three_leaf_tree(paths)), str(folder / "quick.tif"),
+                           max_cells=20_000)
+    grid = result.lineage["grid"]
+    assert grid["width"] * grid["height"] <= 20_000
+    # 300 x 260 = 78 000 cells need a factor of 2 (150 x 130 = 19 500 cells).
+    assert grid["from"]["coarsened"]["factor"] == 2 and grid["cell_size"] == [200.0, 200.0]
+    assert np.isfinite(read_raster(folder / "quick.tif")).any()
+
+
+def test_input_problems_point_at_the_nodes_before_anything_runs(layers):
+    """input_problems names a missing file, a missing band, a feature-less layer, a CRS to convert."""
+    from favour_plugin.raster.checks import input_problems, sample_values
+
+    folder, paths, arrays = layers
+    empty = write_vector(folder / "empty.gpkg", [], layer="none")
+    subprocess.run(["gdalwarp", "-q", "-t_srs", "EPSG:4326", paths["grav"], str(folder / "geo.tif")],
+                   check=True)
+    doc = tree_doc([leaf("Mag", paths["mag"], {"type": "linear", "lower": 60, "upper": 160}),
+                    leaf("Gone", folder / "gone.tif", {"type": "linear", "lower": 0, "upper": 1}),
+                    leaf("Band", paths["mag"], {"type": "linear", "lower": 0, "upper": 1}, band=4),
+                    leaf("Empty", empty, {"type": "linear", "lower": 0, "upper": 1}, measure="distance"),
+                    leaf("Geo", folder / "geo.tif", {"type": "linear", "lower": 0, "upper": 1})])
+    found = {(p.node.split(" > ")[-1], p.level): p.message for p in input_problems(Tree.from_dict(doc))}
+    assert "does not exist" in found[("Gone", "error")]
+    assert "band 4 does not exist" in found[("Band", "error")]
+    assert "has no features" in found[("Empty", "error")]
+    assert "reprojected" in found[("Geo", "warning")]
+    assert ("Mag", "error") not in found and ("Mag", "warning") not in found
+    sample = sample_values(paths["mag"], max_cells=5000)
+    assert 2000 < sample.size <= 5000 and not np.isin(-9999, sample)
+    assert abs(np.median(sample) - np.median(arrays["mag"][arrays["mag"] != -9999])) < 5

@@ -180,10 +180,14 @@ class Node:
 
 @dataclass(frozen=True)
 class Problem:
-    """Something wrong with one node: its path and a message."""
+    """Something wrong with one node: its path, a message, and ``"error"`` or ``"warning"``.
+
+    Errors stop an evaluation; warnings (a proxy that will be resampled) do not.
+    """
 
     node: str
     message: str
+    level: str = "error"
 
     def __str__(self) -> str:
         """Render as ``node path: message``."""

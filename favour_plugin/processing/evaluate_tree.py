@@ -7,6 +7,7 @@ from qgis.core import (
     QgsProcessingOutputFolder,
     QgsProcessingParameterFile,
     QgsProcessingParameterFolderDestination,
+    QgsProcessingParameterNumber,
     QgsProcessingParameterRasterDestination,
 )
 
@@ -20,6 +21,7 @@ class EvaluateTreeAlgorithm(FavourAlgorithm):
     TREE = "TREE"
     OUTPUT = "OUTPUT"
     NODE_FOLDER = "NODE_FOLDER"
+    MAX_CELLS = "MAX_CELLS"
     LINEAGE = "LINEAGE"
 
     NAME = "evaluatetree"
@@ -29,7 +31,9 @@ class EvaluateTreeAlgorithm(FavourAlgorithm):
             "by each node's operator. Writes the favourability raster (0 to 1), its style, and "
             "a lineage record (<output>.lineage.json) with the tree, every input's SHA-256, "
             "the grid, resampling, parameters and per-node statistics. Optionally writes one "
-            "raster per component (source, pathway, trap, preservation) into a folder.")
+            "raster per component (source, pathway, trap, preservation) into a folder. "
+            "MAX_CELLS above 0 makes a quick look: the grid's cells are enlarged by a whole "
+            "factor until the grid has at most that many cells.")
 
     def initAlgorithm(self, config=None):  # noqa: N802 (QGIS API name)
         """Declare the parameters and outputs."""
@@ -40,6 +44,11 @@ class EvaluateTreeAlgorithm(FavourAlgorithm):
         self.addParameter(QgsProcessingParameterFolderDestination(
             self.NODE_FOLDER, self.tr("Folder for component rasters"), optional=True,
             createByDefault=False))
+        cells = QgsProcessingParameterNumber(
+            self.MAX_CELLS, self.tr("Quick look: at most this many cells (0 = the full grid)"),
+            QgsProcessingParameterNumber.Integer, defaultValue=0, optional=True, minValue=0)
+        cells.setFlags(cells.flags() | QgsProcessingParameterNumber.FlagAdvanced)
+        self.addParameter(cells)
         self.addOutput(QgsProcessingOutputFile(self.LINEAGE, self.tr("Lineage record")))
         self.addOutput(QgsProcessingOutputFolder(self.NODE_FOLDER, self.tr("Component rasters")))
 
@@ -48,8 +57,9 @@ class EvaluateTreeAlgorithm(FavourAlgorithm):
         tree_file = self.parameterAsFile(parameters, self.TREE, context)
         output = self.parameterAsOutputLayer(parameters, self.OUTPUT, context)
         node_folder = self.parameterAsString(parameters, self.NODE_FOLDER, context) or None
+        max_cells = self.parameterAsInt(parameters, self.MAX_CELLS, context) or None
         result = run_guarded(evaluate_tree_file, tree_file, output, node_folder,
-                             ProcessingFeedback(feedback))
+                             ProcessingFeedback(feedback), max_cells=max_cells)
         style_on_load(context, result.output)
         return {self.OUTPUT: result.output, self.LINEAGE: result.lineage_file,
                 self.NODE_FOLDER: node_folder}

@@ -142,7 +142,7 @@ class _Hasher(threading.Thread):
 def evaluate_tree(tree: Tree, output: str, node_folder: str | None = None,
                   feedback: Feedback | None = None, grid: Grid | None = None,
                   threads: int | None = None, job: str = "evaluate-tree",
-                  tree_file: str | None = None) -> EvaluationResult:
+                  tree_file: str | None = None, max_cells: int | None = None) -> EvaluationResult:
     """Evaluate a criteria tree onto its grid and write the favourability raster with lineage.
 
     Parameters
@@ -163,6 +163,9 @@ def evaluate_tree(tree: Tree, output: str, node_folder: str | None = None,
         Name of the job in the lineage.
     tree_file : str, optional
         The tree file the tree came from, hashed into the lineage.
+    max_cells : int, optional
+        Coarsen the grid by a whole factor until it has at most this many
+        cells (a quick look); the lineage records the factor.
 
     Returns
     -------
@@ -187,7 +190,7 @@ def evaluate_tree(tree: Tree, output: str, node_folder: str | None = None,
     try:
         with gdal_job():
             return _evaluate(tree, plan, output, node_folder, feedback, grid, threads, job,
-                             tree_file, workdir, writers)
+                             tree_file, workdir, writers, max_cells)
     except BaseException:
         for writer in writers.values():
             writer.abort()
@@ -197,13 +200,19 @@ def evaluate_tree(tree: Tree, output: str, node_folder: str | None = None,
 
 
 def _evaluate(tree, plan, output, node_folder, feedback, grid, threads, job, tree_file,
-              workdir, writers) -> EvaluationResult:
+              workdir, writers, max_cells) -> EvaluationResult:
     """Body of :func:`evaluate_tree`, run inside the GDAL job settings."""
     created = lin.utc_now()
     if grid is None:
         grid, grid_note = reference_grid(tree, plan)
     else:
         grid_note = {"source": "given by the caller"}
+    if max_cells and grid.cells > max_cells:
+        coarse = grid.coarsened(max_cells)
+        grid_note["coarsened"] = {"from": grid.to_dict(), "factor": round(coarse.cell_x / grid.cell_x),
+                                  "max_cells": max_cells}
+        feedback.info(f"quick look: cells {round(coarse.cell_x / grid.cell_x)} times larger on each side")
+        grid = coarse
     feedback.info(f"grid: {grid.describe()}")
     sources = _prepare_sources(tree, plan, grid, workdir, feedback, (0.0, 0.15))
     unique = {spec.key: spec for spec in sources.values()}.values()
@@ -342,11 +351,12 @@ def _stream(plan: EvaluationPlan, sources: dict[str, SourceSpec], grid: Grid,
 
 
 def evaluate_tree_file(tree_file: str, output: str, node_folder: str | None = None,
-                       feedback: Feedback | None = None, threads: int | None = None
-                       ) -> EvaluationResult:
+                       feedback: Feedback | None = None, threads: int | None = None,
+                       max_cells: int | None = None) -> EvaluationResult:
     """Load a tree file and evaluate it (see :func:`evaluate_tree`)."""
     tree = Tree.load(tree_file)
-    return evaluate_tree(tree, output, node_folder, feedback, threads=threads, tree_file=tree_file)
+    return evaluate_tree(tree, output, node_folder, feedback, threads=threads, tree_file=tree_file,
+                         max_cells=max_cells)
 
 
 @dataclass
