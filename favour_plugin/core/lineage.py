@@ -195,7 +195,7 @@ def summary_metadata(record: dict, node: str | None = None) -> dict[str, str]:
         "FAVOUR_SOFTWARE": f"Favour {record['tool']['version']}",
         "FAVOUR_JOB": record.get("job", ""),
         "FAVOUR_CREATED": record.get("created", ""),
-        "FAVOUR_TREE": record.get("tree", {}).get("name", ""),
+        "FAVOUR_TREE": (record.get("tree") or {}).get("name", ""),
         "FAVOUR_NODE": node or record.get("root", ""),
         "FAVOUR_LINEAGE": record.get("lineage_file", ""),
         "FAVOUR_INPUTS": "; ".join(

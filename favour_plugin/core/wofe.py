@@ -89,6 +89,8 @@ Listed here once; details marked "(from memory)" were recalled, not looked up.
 
 from __future__ import annotations
 
+import csv
+import io
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
@@ -167,6 +169,30 @@ def _merge_keyed(keys_a, vals_a, keys_b, vals_b):
         np.add.at(total, np.searchsorted(keys, keys_b), col_b)
         out.append(total)
     return keys, out
+
+
+def _count_codes(known: np.ndarray, is_dep: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Return (distinct codes, cells, deposit cells) of a block's known values.
+
+    Whole-number codes within a span of 65 536 (classes, and every output of
+    :func:`code_by_breaks`) are counted with ``bincount`` in linear time;
+    anything else with a sort (``unique``).
+    """
+    if known.size:
+        low = known.min()
+        shifted = known - low
+        if known.max() - low < 65536:
+            whole = shifted.astype(np.int64)
+            if np.array_equal(whole, shifted):
+                cells = np.bincount(whole)
+                deps = np.bincount(whole, weights=is_dep, minlength=cells.size)
+                present = np.flatnonzero(cells)
+                return present + low, cells[present].astype(np.int64), deps[present].astype(np.int64)
+    keys, inverse = np.unique(known, return_inverse=True)
+    inverse = inverse.reshape(-1)
+    cells = np.bincount(inverse, minlength=keys.size).astype(np.int64)
+    deps = np.bincount(inverse, weights=is_dep, minlength=keys.size).astype(np.int64)
+    return keys, cells, deps
 
 
 class ClassCounts:
@@ -256,10 +282,7 @@ class ClassCounts:
         self.nodata_cells += int(missing.sum())
         self.nodata_deposit_cells += int(is_dep[missing].sum())
         known = values[~missing]
-        keys, inverse = np.unique(known, return_inverse=True)
-        inverse = inverse.reshape(-1)
-        cells = np.bincount(inverse, minlength=keys.size).astype(np.int64)
-        deps = np.bincount(inverse, weights=is_dep[~missing], minlength=keys.size).astype(np.int64)
+        keys, cells, deps = _count_codes(known, is_dep[~missing])
         merged, (cells, deps) = _merge_keyed(self._classes, (self._cells, self._deposits),
                                              keys, (cells, deps))
         if merged.size > self.max_classes:
@@ -564,6 +587,90 @@ class WeightsTable:
                 "merged_deposits": self.merged_deposits, "outside_deposits": self.outside_deposits,
                 "columns": list(self.columns), "rows": [dict(row) for row in self.rows]}
 
+    @classmethod
+    def from_dict(cls, doc: Mapping) -> WeightsTable:
+        """Rebuild a table from :meth:`as_dict`'s output (e.g. read back from a lineage record)."""
+        try:
+            kind = doc["kind"]
+            if kind not in KINDS:
+                raise ParameterError(f"weights table kind must be one of {', '.join(KINDS)}, got {kind!r}")
+            return cls(name=str(doc["name"]), kind=kind, rows=[dict(r) for r in doc["rows"]],
+                       unit_cell_km2=float(doc["unit_cell_km2"]),
+                       cell_area_km2=float(doc["cell_area_km2"]), small_count=doc.get("small_count"),
+                       area_units=float(doc["area_units"]), deposits=int(doc["deposits"]),
+                       nodata_area_units=float(doc["nodata_area_units"]),
+                       nodata_deposits=int(doc["nodata_deposits"]),
+                       merged_deposits=int(doc["merged_deposits"]),
+                       outside_deposits=int(doc["outside_deposits"]))
+        except (KeyError, TypeError, ValueError) as exc:
+            raise ParameterError(f"not a weights table record: {exc}") from None
+
+    def to_csv(self, level: float = DEFAULT_LEVEL) -> str:
+        """Return the table as CSV text: :data:`CSV_COLUMNS`, one row per class or threshold.
+
+        Undefined numbers are empty fields; ``significant`` is ``yes`` where
+        |C / s(C)| ≥ ``level`` and ``no`` otherwise (empty when undefined).
+        """
+        buffer = io.StringIO()
+        writer = csv.writer(buffer, lineterminator="\n")
+        writer.writerow(CSV_COLUMNS)
+        for row in self.rows:
+            z = row["studentized_contrast"]
+            significant = "" if z is None else ("yes" if abs(z) >= level else "no")
+            values = {**row, "significant": significant}
+            writer.writerow(["" if values[c] is None else _csv_number(values[c]) for c in CSV_COLUMNS])
+        return buffer.getvalue()
+
+
+#: Columns of the CSV form of a weights table, in order.
+CSV_COLUMNS = ("class", "area_units", "deposits", "w_plus", "s_w_plus", "w_minus", "s_w_minus",
+               "contrast", "s_contrast", "studentized_contrast", "p_value", "significant", "flag",
+               "note", "class_area_units", "class_deposits")
+
+
+def _csv_number(value):
+    """Render a float with full precision (repr) and anything else as it is."""
+    if isinstance(value, float):
+        return repr(int(value)) if value.is_integer() and abs(value) < 1e15 else repr(value)
+    return value
+
+
+def weights_membership(layer: LayerWeights, source: str = "") -> dict:
+    """Return a tree-leaf membership that scores each class of an evidence layer by its weight.
+
+    Parameters
+    ----------
+    layer : LayerWeights
+        From :func:`layer_weights` (binary, categorical or an ordered table at a cut).
+    source : str
+        Where the weights came from (a table file), kept in the membership for the record.
+
+    Returns
+    -------
+    dict
+        ``{"type": "weights", "weights": {code: W}, "default": None, "source": ...}``,
+        the membership type :func:`favour_plugin.core.membership.weights_score` evaluates.
+
+    Notes
+    -----
+    This is how an analogue district's statistics score a greenfield one:
+    the weights are counted where deposits are known and the leaf applies
+    them, through μ = 1 / (1 + exp(−W)), to the same evidence mapped in the
+    new ground. See :func:`favour_plugin.core.membership.weights_score` for
+    the scheme and its source.
+    """
+    weights = {_code_key(k): float(w) for k, w in zip(layer.classes, layer.weights)}
+    out = {"type": "weights", "weights": weights, "default": None}
+    if source:
+        out["source"] = source
+    return out
+
+
+def _code_key(value: float) -> str:
+    """Return a class code as tree files write it: ``"3"``, ``"-1"``, ``"2.5"``."""
+    value = float(value)
+    return str(int(value)) if value.is_integer() else repr(value)
+
 
 def _plain(value):
     """Return a float, or None for NaN."""
@@ -705,12 +812,12 @@ def weights_table(counts: ClassCounts, kind: str, unit_cell_km2: float, cell_are
         deposits=int(dep_n), nodata_area_units=float(counts.nodata_cells * scale),
         nodata_deposits=counts.nodata_deposit_cells, merged_deposits=counts.merged_deposits,
         outside_deposits=counts.outside_deposits)
-    _report_table(table, feedback)
+    report_table(table, feedback)
     return table
 
 
-def _report_table(table: WeightsTable, feedback: Feedback) -> None:
-    """Send the table's caveats to ``feedback``."""
+def report_table(table: WeightsTable, feedback: Feedback) -> None:
+    """Send the table's caveats to ``feedback``: flagged rows, deposits on nodata, merged, outside."""
     for row in table.flagged:
         feedback.warning(f"{table.name}: class {row['class']:g}: {row['note']}", SmallSampleWarning)
     if table.nodata_deposits:

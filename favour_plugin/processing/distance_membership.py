@@ -14,7 +14,6 @@ import os
 
 from qgis.core import (
     QgsProcessing,
-    QgsProcessingException,
     QgsProcessingOutputFile,
     QgsProcessingParameterFeatureSource,
     QgsProcessingParameterRasterDestination,
@@ -23,7 +22,7 @@ from qgis.core import (
 
 from ..raster.engine import evaluate_tree
 from .base import FavourAlgorithm, ProcessingFeedback, run_guarded, style_on_load
-from .layers import export_features, features_copy_path, plain_vector_file, raster_layer_path
+from .layers import VectorInput, features_copy_path, raster_layer_path
 from .membership import MembershipParameters, node_name, one_leaf_tree
 
 
@@ -60,77 +59,24 @@ class DistanceMembershipAlgorithm(MembershipParameters, FavourAlgorithm):
         """Find the files behind the layers in the main thread, where layers may be touched."""
         self._reference = raster_layer_path(
             self.parameterAsRasterLayer(parameters, self.REFERENCE, context), self.REFERENCE)
-        layer = self.parameterAsVectorLayer(parameters, self.INPUT, context)
-        self._plain = plain_vector_file(parameters, self.INPUT, layer)
-        self._label = node_name(layer.name() if layer is not None else "", "features")
+        self._features = VectorInput.prepare(self, parameters, self.INPUT, context)
+        self._label = node_name(self._features.label, "features")
         return True
 
     def processAlgorithm(self, parameters, context, feedback):  # noqa: N802 (QGIS API name)
         """Read the parameters, measure and score the distance, return the outputs."""
         spec = self.membership_spec(parameters, context)
         output = os.path.abspath(self.parameterAsOutputLayer(parameters, self.OUTPUT, context))
-        copy = None
-        if self._plain is not None:
-            path, layer_name = self._plain
-        else:
-            source = self.parameterAsSource(parameters, self.INPUT, context)
-            if source is None:
-                raise QgsProcessingException(f"{self.INPUT}: no vector layer was given")
-            path, layer_name = features_copy_path(output), "features"
-            copy = _Replacement(path)
-            count = export_features(source, copy.partial, context, feedback)
-            copy.install()
-            feedback.pushInfo(
-                f"{self.INPUT}: the layer is not a plain file (a memory layer, a filter or a "
-                f"selection); its {count} feature(s) were copied to {path}, the file the "
-                "lineage records")
+        path, layer_name = self._features.resolve(self, parameters, context, feedback,
+                                                  features_copy_path(output))
         proxy = {"path": path, "measure": "distance"}
         if layer_name:
             proxy["layer"] = layer_name
         leaf = {"name": f"Distance to {self._label}", "proxy": proxy, "membership": spec}
         tree = one_leaf_tree(f"Distance membership of {self._label}", "Distance membership", leaf,
                              grid={"reference": self._reference})
-        try:
+        with self._features.kept_on_success():
             result = run_guarded(evaluate_tree, tree, output, None, ProcessingFeedback(feedback),
                                  job="distance-membership")
-        except BaseException:
-            if copy is not None:
-                copy.undo()
-            raise
-        if copy is not None:
-            copy.keep()
         style_on_load(context, result.output)
         return {self.OUTPUT: result.output, self.LINEAGE: result.lineage_file}
-
-
-class _Replacement:
-    """A file put in place of an earlier one, which comes back if the job fails.
-
-    The copy of the features must sit under its final name while the tree is
-    evaluated (the lineage names it), so an earlier copy is moved aside and
-    restored on failure, and the user's earlier result keeps its input.
-    """
-
-    def __init__(self, path: str) -> None:
-        self.path = path
-        self.partial = path + ".partial.gpkg"
-        self.previous = path + ".previous.gpkg"
-
-    def install(self) -> None:
-        """Move an earlier file aside and the new one (written at ``partial``) into place."""
-        if os.path.exists(self.path):
-            os.replace(self.path, self.previous)
-        os.replace(self.partial, self.path)
-
-    def undo(self) -> None:
-        """Remove the new file and bring the earlier one back."""
-        for path in (self.partial, self.path):
-            if os.path.exists(path):
-                os.unlink(path)
-        if os.path.exists(self.previous):
-            os.replace(self.previous, self.path)
-
-    def keep(self) -> None:
-        """Drop the earlier file: the new one belongs to the new result."""
-        if os.path.exists(self.previous):
-            os.unlink(self.previous)

@@ -11,6 +11,7 @@ the lineage records, so the job can be run again from the lineage alone.
 from __future__ import annotations
 
 import os
+from contextlib import contextmanager
 
 from qgis.core import (
     QgsFeature,
@@ -147,3 +148,86 @@ def export_features(source, path: str, context, feedback) -> int:
         if os.path.exists(partial):
             os.unlink(partial)
     return count
+
+
+class _Replacement:
+    """A file put in place of an earlier one, which comes back if the job fails.
+
+    The copy of the features must sit under its final name while the tree is
+    evaluated (the lineage names it), so an earlier copy is moved aside and
+    restored on failure, and the user's earlier result keeps its input.
+    """
+
+    def __init__(self, path: str) -> None:
+        self.path = path
+        self.partial = path + ".partial.gpkg"
+        self.previous = path + ".previous.gpkg"
+
+    def install(self) -> None:
+        """Move an earlier file aside and the new one (written at ``partial``) into place."""
+        if os.path.exists(self.path):
+            os.replace(self.path, self.previous)
+        os.replace(self.partial, self.path)
+
+    def undo(self) -> None:
+        """Remove the new file and bring the earlier one back."""
+        for path in (self.partial, self.path):
+            if os.path.exists(path):
+                os.unlink(path)
+        if os.path.exists(self.previous):
+            os.replace(self.previous, self.path)
+
+    def keep(self) -> None:
+        """Drop the earlier file: the new one belongs to the new result."""
+        if os.path.exists(self.previous):
+            os.unlink(self.previous)
+
+
+class VectorInput:
+    """A vector parameter as a file Favour reads: the layer's own file, or a copy of its features.
+
+    :meth:`prepare` runs in ``prepareAlgorithm`` (main thread, layers may be
+    touched); :meth:`resolve` in ``processAlgorithm`` copies the features
+    when the layer is not a plain file, and :meth:`kept_on_success` wraps the
+    job so a failed run brings back any earlier copy.
+    """
+
+    def __init__(self, key: str, plain: tuple[str, str | None] | None, label: str) -> None:
+        self.key = key
+        self.plain = plain
+        self.label = label
+        self._copy: _Replacement | None = None
+
+    @classmethod
+    def prepare(cls, algorithm, parameters, key: str, context) -> VectorInput:
+        """Look at the layer given for ``key`` and remember whether it is a plain file."""
+        layer = algorithm.parameterAsVectorLayer(parameters, key, context)
+        return cls(key, plain_vector_file(parameters, key, layer), layer.name() if layer else "")
+
+    def resolve(self, algorithm, parameters, context, feedback, copy_path: str
+                ) -> tuple[str, str | None]:
+        """Return ``(path, layer name)`` to read, copying the features to ``copy_path`` if needed."""
+        if self.plain is not None:
+            return self.plain
+        source = algorithm.parameterAsSource(parameters, self.key, context)
+        if source is None:
+            raise QgsProcessingException(f"{self.key}: no vector layer was given")
+        self._copy = _Replacement(copy_path)
+        count = export_features(source, self._copy.partial, context, feedback)
+        self._copy.install()
+        feedback.pushInfo(f"{self.key}: the layer is not a plain file (a memory layer, a filter or a "
+                          f"selection); its {count} feature(s) were copied to {copy_path}, the file "
+                          "the lineage records")
+        return copy_path, "features"
+
+    @contextmanager
+    def kept_on_success(self):
+        """Keep the copy if the body succeeds; restore the earlier state if it fails."""
+        try:
+            yield
+        except BaseException:
+            if self._copy is not None:
+                self._copy.undo()
+            raise
+        if self._copy is not None:
+            self._copy.keep()

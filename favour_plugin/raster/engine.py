@@ -111,11 +111,10 @@ def _prepare_sources(tree: Tree, plan: EvaluationPlan, grid: Grid, workdir: str,
     return sources
 
 
-def _input_files(path: str, spec: SourceSpec) -> list[str]:
+def input_files(path: str, vector: bool) -> list[str]:
     """Return the files GDAL reads for an input, without statistics and overview sidecars."""
     try:
-        ds = gdal.OpenEx(path, gdal.OF_READONLY | (gdal.OF_VECTOR if spec.record["kind"] == "vector"
-                                                   else gdal.OF_RASTER))
+        ds = gdal.OpenEx(path, gdal.OF_READONLY | (gdal.OF_VECTOR if vector else gdal.OF_RASTER))
         files = ds.GetFileList() or [path]
     except RuntimeError:
         files = [path]
@@ -223,11 +222,11 @@ def _evaluate(tree, plan, output, node_folder, feedback, grid, threads, job, tre
         files.append(os.path.abspath(tree_file))
     if grid_note.get("source") == "reference":
         files.append(grid_note["path"])
-    input_files = {}
+    leaf_files = {}
     for leaf in plan.leaves:
         path = str(leaf.proxy.resolve(tree.base_dir))
-        input_files[leaf.path] = _input_files(path, sources[leaf.path])
-        files.extend(input_files[leaf.path])
+        leaf_files[leaf.path] = input_files(path, sources[leaf.path].record["kind"] == "vector")
+        files.extend(leaf_files[leaf.path])
     hasher = _Hasher(list(dict.fromkeys(files)))
     hasher.start()
 
@@ -262,7 +261,7 @@ def _evaluate(tree, plan, output, node_folder, feedback, grid, threads, job, tre
         "root": plan.root_path,
         "grid": {**grid.to_dict(), "from": grid_note},
         "inputs": [{"node": leaf.path, **sources[leaf.path].record,
-                    "files": [hasher.result[f] for f in input_files[leaf.path]]}
+                    "files": [hasher.result[f] for f in leaf_files[leaf.path]]}
                    for leaf in plan.leaves],
         "parameters": {"block": [BLOCK_ROWS, BLOCK_COLS], "threads": threads,
                        "gdal_cache_bytes": cache_bytes,

@@ -62,9 +62,12 @@ class RasterWriter:
         The grid of the output.
     description : str
         Band description (the node's path).
+    classes : bool
+        Write whole-number class codes as Int16 (generalised evidence)
+        instead of float32 values; nodata is still ``NODATA``.
     """
 
-    def __init__(self, path: str, grid: Grid, description: str = "") -> None:
+    def __init__(self, path: str, grid: Grid, description: str = "", classes: bool = False) -> None:
         check_writable(path)
         self.path = os.path.abspath(path)
         folder, name = os.path.split(self.path)
@@ -73,12 +76,15 @@ class RasterWriter:
         os.close(handle)
         try:
             self._ds = gdal.GetDriverByName("GTiff").Create(
-                self.tmp_path, grid.width, grid.height, 1, gdal.GDT_Float32, list(CREATION_OPTIONS))
+                self.tmp_path, grid.width, grid.height, 1,
+                gdal.GDT_Int16 if classes else gdal.GDT_Float32,
+                [o if o != "PREDICTOR=3" or not classes else "PREDICTOR=2" for o in CREATION_OPTIONS])
         except RuntimeError as exc:
             os.unlink(self.tmp_path)
             raise OutputError(f"cannot create {self.path}: {exc}") from None
         self._ds.SetProjection(grid.crs_wkt)
         self._ds.SetGeoTransform(grid.transform)
+        self._dtype = np.int16 if classes else np.float32
         self._band = self._ds.GetRasterBand(1)
         self._band.SetNoDataValue(NODATA)
         if description:
@@ -86,8 +92,8 @@ class RasterWriter:
 
     def write(self, window: Window, values: np.ndarray) -> None:
         """Write one block of float values; NaN becomes the declared nodata."""
-        block = values.astype(np.float32)
-        block[np.isnan(block)] = NODATA
+        missing = np.isnan(values)
+        block = np.where(missing, NODATA, values).astype(self._dtype)
         self._band.WriteArray(block, window.col_off, window.row_off)
 
     def set_metadata(self, items: dict[str, str], statistics: dict | None = None) -> None:

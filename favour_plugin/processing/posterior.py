@@ -1,0 +1,127 @@
+"""``favour:posterior``: posterior probability and its uncertainty from generalised evidence."""
+
+from __future__ import annotations
+
+import os
+from contextlib import nullcontext
+
+from qgis.core import (
+    QgsProcessing,
+    QgsProcessingOutputNumber,
+    QgsProcessingParameterEnum,
+    QgsProcessingParameterFeatureSource,
+    QgsProcessingParameterFileDestination,
+    QgsProcessingParameterMultipleLayers,
+    QgsProcessingParameterNumber,
+    QgsProcessingParameterRasterDestination,
+)
+
+from ..core import wofe
+from ..raster.wofe_jobs import posterior
+from .base import FavourAlgorithm, ProcessingFeedback, run_guarded, style_on_load
+from .evidence_weights import advanced
+from .layers import VectorInput, raster_layer_path
+
+
+class PosteriorAlgorithm(FavourAlgorithm):
+    """Combine generalised evidence into the posterior probability per unit cell."""
+
+    EVIDENCE = "EVIDENCE"
+    TABLES = "TABLES"
+    DEPOSITS = "DEPOSITS"
+    UNIT_AREA = "UNIT_AREA"
+    STUDY_AREA = "STUDY_AREA"
+    S_P_RULE = "S_P_RULE"
+    OUTPUT_PROBABILITY = "OUTPUT_PROBABILITY"
+    OUTPUT_STD = "OUTPUT_STD"
+    OUTPUT_REPORT = "OUTPUT_REPORT"
+    OBSERVED = "OBSERVED"
+    PREDICTED = "PREDICTED"
+    RATIO = "RATIO"
+    CI_P_VALUE = "CI_P_VALUE"
+
+    NAME = "posterior"
+    DISPLAY = "Posterior probability"
+    GROUP = "Weights of evidence"
+    GROUP_ID = "weightsofevidence"
+    HELP = (
+        "Adds the weights of generalised evidence rasters (binary at a cut, or pooled classes, as "
+        "written by 'Weights of evidence table') to the prior logit of the known deposits and "
+        "writes the posterior probability of a deposit per unit cell and its standard deviation "
+        "(variance of the weights plus, where a layer is nodata, the missing-data variance; "
+        "S_P_RULE chooses s(P) ≈ P(1−P)·s(logit) or P·s(logit)). TABLES, one per raster in the "
+        "same order, brings weights counted elsewhere (an analogue district); without them each "
+        "layer's weights are counted here. The report (HTML) gives the prior, the weights, the "
+        "observed deposits n against the predicted T = Σ N·P with n/T (below about 0.85 is a "
+        "warning sign) and the one-tailed Agterberg–Cheng test, and the pairwise chi-square of "
+        "the layers on deposit counts. The first raster's grid is the output grid.")
+
+    def initAlgorithm(self, config=None):  # noqa: N802 (QGIS API name)
+        """Declare the parameters and outputs."""
+        self.addParameter(QgsProcessingParameterMultipleLayers(
+            self.EVIDENCE, self.tr("Generalised evidence rasters"), QgsProcessing.TypeRaster))
+        self.addParameter(QgsProcessingParameterMultipleLayers(
+            self.TABLES, self.tr("Weights tables, one per raster (optional)"), QgsProcessing.TypeFile,
+            optional=True))
+        self.addParameter(QgsProcessingParameterFeatureSource(
+            self.DEPOSITS, self.tr("Known deposits (points)"), [QgsProcessing.TypeVectorPoint]))
+        self.addParameter(QgsProcessingParameterNumber(
+            self.UNIT_AREA, self.tr("Unit cell (km²)"), QgsProcessingParameterNumber.Double,
+            defaultValue=1.0, minValue=1e-9))
+        self.addParameter(QgsProcessingParameterFeatureSource(
+            self.STUDY_AREA, self.tr("Study area (polygons, optional)"),
+            [QgsProcessing.TypeVectorPolygon], optional=True))
+        self.addParameter(advanced(QgsProcessingParameterEnum(
+            self.S_P_RULE, self.tr("s(P) from s(logit)"), options=list(wofe.S_P_RULES),
+            defaultValue="delta", usesStaticStrings=True)))
+        self.addParameter(QgsProcessingParameterRasterDestination(
+            self.OUTPUT_PROBABILITY, self.tr("Posterior probability")))
+        self.addParameter(QgsProcessingParameterRasterDestination(
+            self.OUTPUT_STD, self.tr("Standard deviation of the posterior")))
+        self.addParameter(QgsProcessingParameterFileDestination(
+            self.OUTPUT_REPORT, self.tr("Report"), fileFilter="HTML files (*.html)", optional=True))
+        self.addOutput(QgsProcessingOutputNumber(self.OBSERVED, self.tr("Observed deposits n")))
+        self.addOutput(QgsProcessingOutputNumber(self.PREDICTED, self.tr("Predicted deposits T")))
+        self.addOutput(QgsProcessingOutputNumber(self.RATIO, self.tr("n / T")))
+        self.addOutput(QgsProcessingOutputNumber(self.CI_P_VALUE, self.tr("Agterberg–Cheng p-value")))
+
+    def prepareAlgorithm(self, parameters, context, feedback):  # noqa: N802 (QGIS API name)
+        """Find the files behind the layers in the main thread."""
+        self._evidence = [raster_layer_path(layer, self.EVIDENCE) for layer in
+                          self.parameterAsLayerList(parameters, self.EVIDENCE, context)]
+        self._deposits = VectorInput.prepare(self, parameters, self.DEPOSITS, context)
+        self._study = (VectorInput.prepare(self, parameters, self.STUDY_AREA, context)
+                       if parameters.get(self.STUDY_AREA) else None)
+        return True
+
+    def processAlgorithm(self, parameters, context, feedback):  # noqa: N802 (QGIS API name)
+        """Read the parameters, compute the posterior, return the outputs."""
+        tables = (self.parameterAsFileList(parameters, self.TABLES, context)
+                  if parameters.get(self.TABLES) else None)
+        unit = self.parameterAsDouble(parameters, self.UNIT_AREA, context)
+        rule = self.parameterAsEnumString(parameters, self.S_P_RULE, context)
+        probability = self.parameterAsOutputLayer(parameters, self.OUTPUT_PROBABILITY, context)
+        spread = self.parameterAsOutputLayer(parameters, self.OUTPUT_STD, context)
+        report = self.parameterAsFileOutput(parameters, self.OUTPUT_REPORT, context) or None
+        base = os.path.splitext(os.path.abspath(probability))[0]
+        deposits, deposits_layer = self._deposits.resolve(self, parameters, context, feedback,
+                                                          base + ".deposits.gpkg")
+        study = study_layer = None
+        if self._study is not None:
+            study, study_layer = self._study.resolve(self, parameters, context, feedback,
+                                                     base + ".study-area.gpkg")
+        with self._deposits.kept_on_success(), \
+                (self._study.kept_on_success() if self._study is not None else nullcontext()):
+            result = run_guarded(
+                posterior, self._evidence, deposits, probability, spread, report, tables=tables,
+                deposits_layer=deposits_layer, unit_area_km2=unit, study_area=study,
+                study_layer=study_layer, s_p_rule=rule, feedback=ProcessingFeedback(feedback))
+        overall = result.checks["overall"]
+        feedback.pushInfo(f"n = {overall['observed']}, T = {overall['predicted']:.4g}, "
+                          f"n/T = {overall['ratio']:.3f}, Agterberg–Cheng p = {overall['p_value']:.3g}")
+        for path in (result.probability_file, result.std_file):
+            style_on_load(context, path)
+        return {self.OUTPUT_PROBABILITY: result.probability_file, self.OUTPUT_STD: result.std_file,
+                self.OUTPUT_REPORT: result.report_file, self.OBSERVED: overall["observed"],
+                self.PREDICTED: overall["predicted"], self.RATIO: overall["ratio"],
+                self.CI_P_VALUE: overall["p_value"]}

@@ -1,0 +1,293 @@
+"""Evidence rasters and deposit points on a grid, counted block by block for weights of evidence.
+
+Deposits are points from any OGR source, reprojected to the grid's CRS when
+needed. Each point is placed in the cell that contains it; points outside
+the grid are counted and reported, never dropped silently. Several points in
+one cell make one deposit cell (core.wofe's rule) and the extra points are
+reported as merged. An optional study-area polygon layer limits the counts.
+
+Integer evidence (Byte, Int16, UInt16 bands) is counted with one dense
+histogram per block, which keeps a pass close to the cost of reading the
+raster; other evidence goes through :class:`~favour_plugin.core.wofe.ClassCounts`.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from dataclasses import dataclass
+
+import numpy as np
+from osgeo import gdal, osr
+
+from ..core import wofe
+from ..core.errors import GridError, InputError
+from ..core.feedback import Feedback
+from .blocks import Window, count_windows, iter_windows
+from .grid import Grid, crs_label
+from .sources import BlockReader, SourceSpec
+from .vector import read_layer_facts
+
+# Band types counted by a dense histogram: their codes span at most 65 536 values.
+_DENSE_TYPES = {gdal.GDT_Byte: (0, 256), gdal.GDT_UInt16: (0, 65536), gdal.GDT_Int16: (-32768, 65536)}
+
+
+def cell_area_km2(grid: Grid) -> float:
+    """Return the area of one grid cell in km², refusing a CRS without linear units.
+
+    Raises
+    ------
+    GridError
+        A geographic CRS (degrees): a unit cell is an area, so weights of
+        evidence needs a projected grid.
+    """
+    srs = grid.srs
+    if not srs.IsProjected():
+        raise GridError(f"the grid is in {crs_label(srs)}, which is not projected; weights of evidence "
+                        "measures areas in km², so reproject the evidence to a projected CRS")
+    metres = srs.GetLinearUnits()
+    return grid.cell_x * grid.cell_y * metres * metres / 1e6
+
+
+@dataclass
+class DepositCells:
+    """Deposit points placed on a grid: the cells they fall in, with counts, and what was left out.
+
+    ``rows`` and ``cols`` are sorted by row then column and unique; ``counts``
+    is the number of points in each; ``outside_grid`` counts points that fall
+    off the grid; ``total`` all points read.
+    """
+
+    rows: np.ndarray
+    cols: np.ndarray
+    counts: np.ndarray
+    total: int
+    outside_grid: int
+    record: dict
+
+    def block(self, window: Window) -> np.ndarray:
+        """Return the number of points in each cell of ``window`` (int64 array)."""
+        out = np.zeros(window.shape, dtype=np.int64)
+        start, stop = np.searchsorted(self.rows, [window.row_off, window.row_off + window.height])
+        rows, cols = self.rows[start:stop], self.cols[start:stop]
+        inside = (cols >= window.col_off) & (cols < window.col_off + window.width)
+        out[rows[inside] - window.row_off, cols[inside] - window.col_off] = self.counts[start:stop][inside]
+        return out
+
+    @property
+    def on_grid(self) -> int:
+        """Points that fall on the grid."""
+        return int(self.counts.sum())
+
+
+def deposit_cells(path: str, layer_name: str | None, grid: Grid, feedback: Feedback,
+                  name: str = "deposits") -> DepositCells:
+    """Read deposit points and place them on ``grid``.
+
+    Raises
+    ------
+    MissingInputError, InputError, GridError
+        Missing file, no features, no CRS, geometries that are not points,
+        or no point on the grid.
+    """
+    facts = read_layer_facts(path, layer_name, name)
+    label = f"{os.path.basename(path)}:{facts.name}"
+    if facts.count == 0:
+        raise InputError(f"{name}: the layer {label} has no features; weights of evidence needs "
+                         "known deposits")
+    if facts.srs_wkt is None:
+        raise GridError(f"{name}: the layer {label} has no CRS; assign one first")
+    if "point" not in facts.geometry.lower():
+        raise InputError(f"{name}: the layer {label} holds {facts.geometry} geometries; deposits must "
+                         "be points")
+    source_srs = osr.SpatialReference()
+    source_srs.ImportFromWkt(facts.srs_wkt)
+    source_srs.SetAxisMappingStrategy(osr.OAMS_TRADITIONAL_GIS_ORDER)
+    xs, ys = _read_points(path, facts.name)
+    reprojected = not bool(source_srs.IsSame(grid.srs))
+    if reprojected and xs.size:
+        transform = osr.CoordinateTransformation(source_srs, grid.srs)
+        points = np.asarray(transform.TransformPoints(np.column_stack([xs, ys]).tolist()))
+        xs, ys = points[:, 0], points[:, 1]
+        feedback.info(f"{name}: {label} is in {crs_label(source_srs)}; its points were reprojected to "
+                      f"the grid's {crs_label(grid.srs)}")
+    cols = np.floor((xs - grid.xmin) / grid.cell_x).astype(np.int64)
+    rows = np.floor((grid.ymax - ys) / grid.cell_y).astype(np.int64)
+    on = (cols >= 0) & (cols < grid.width) & (rows >= 0) & (rows < grid.height) & np.isfinite(xs)
+    outside = int((~on).sum())
+    if not on.any():
+        raise InputError(f"{name}: none of the {xs.size} points of {label} falls on the grid "
+                         f"({grid.describe()})")
+    if outside:
+        feedback.warning(f"{name}: {outside} of {xs.size} points of {label} fall outside the grid and "
+                         "are not counted")
+    keys, counts = np.unique(rows[on] * grid.width + cols[on], return_counts=True)
+    record = {"kind": "deposits", "path": path, "layer": facts.name, "points": int(xs.size),
+              "on_grid": int(on.sum()), "outside_grid": outside, "crs": crs_label(source_srs),
+              "reprojected": reprojected, "cells": int(keys.size)}
+    return DepositCells(keys // grid.width, keys % grid.width, counts.astype(np.int64), int(xs.size),
+                        outside, record)
+
+
+def _read_points(path: str, layer_name: str) -> tuple[np.ndarray, np.ndarray]:
+    """Return the x and y of every point (multipoints exploded) of a layer."""
+    ds = gdal.OpenEx(path, gdal.OF_VECTOR | gdal.OF_READONLY)
+    layer = ds.GetLayerByName(layer_name)
+    xs, ys = [], []
+    for feature in layer:
+        geometry = feature.GetGeometryRef()
+        if geometry is None or geometry.IsEmpty():
+            continue
+        parts = [geometry.GetGeometryRef(i) for i in range(geometry.GetGeometryCount())] \
+            if geometry.GetGeometryCount() else [geometry]
+        for part in parts:
+            xs.append(part.GetX())
+            ys.append(part.GetY())
+        geometry = None
+    feature = layer = None
+    ds = None
+    return np.array(xs, dtype=np.float64), np.array(ys, dtype=np.float64)
+
+
+def study_area_source(path: str, layer_name: str | None, grid: Grid, workdir: str,
+                      name: str = "study area") -> tuple[SourceSpec, dict]:
+    """Rasterise a polygon layer onto ``grid`` (1 inside, 0 outside) and return how to read it.
+
+    Cells whose centre lies inside a polygon are inside the study area.
+    """
+    facts = read_layer_facts(path, layer_name, name)
+    label = f"{os.path.basename(path)}:{facts.name}"
+    if facts.count == 0:
+        raise InputError(f"{name}: the layer {label} has no features")
+    if facts.srs_wkt is None:
+        raise GridError(f"{name}: the layer {label} has no CRS; assign one first")
+    if not facts.polygons:
+        raise InputError(f"{name}: the layer {label} holds {facts.geometry} geometries; a study area "
+                         "is a polygon layer")
+    target = os.path.join(workdir, "study-area.tif")
+    ds = gdal.GetDriverByName("GTiff").Create(target, grid.width, grid.height, 1, gdal.GDT_Byte,
+                                              ["TILED=YES", "COMPRESS=DEFLATE"])
+    ds.SetProjection(grid.crs_wkt)
+    ds.SetGeoTransform(grid.transform)
+    gdal.Rasterize(ds, path, layers=[facts.name], burnValues=[1], allTouched=False)
+    ds = None
+    record = {"kind": "study area", "path": path, "layer": facts.name, "features": facts.count,
+              "crs": crs_label(_srs(facts.srs_wkt))}
+    return SourceSpec(f"{path}|{facts.name}|study", target, 1, None, 1.0, 0.0, record), record
+
+
+def _srs(wkt: str) -> osr.SpatialReference:
+    ref = osr.SpatialReference()
+    ref.ImportFromWkt(wkt)
+    return ref
+
+
+class _DenseCounter:
+    """Cells and deposit cells per code of an integer band, as dense histograms."""
+
+    def __init__(self, data_type: int, nodata: float | None) -> None:
+        self.offset, self.size = _DENSE_TYPES[data_type]
+        self.nodata = None if nodata is None or math.isnan(nodata) else int(nodata)
+        self.cells = np.zeros(self.size, dtype=np.int64)
+        self.deposits = np.zeros(self.size, dtype=np.int64)
+        self.merged = 0
+        self.outside = 0
+
+    def add(self, raw: np.ndarray, deposits: np.ndarray | None, inside: np.ndarray | None) -> None:
+        codes = raw.ravel().astype(np.int64) - self.offset if self.offset else raw.ravel()
+        if inside is None:
+            self.cells += np.bincount(codes, minlength=self.size)
+        else:
+            self.cells += np.bincount(codes[inside.ravel()], minlength=self.size)
+        if deposits is not None:
+            dep = deposits.ravel()
+            hit = np.flatnonzero(dep)
+            if hit.size:
+                if inside is not None:
+                    keep = inside.ravel()[hit]
+                    self.outside += int(dep[hit[~keep]].sum())
+                    hit = hit[keep]
+                self.merged += int(np.maximum(dep[hit] - 1, 0).sum())
+                np.add.at(self.deposits, np.asarray(codes[hit], dtype=np.int64), 1)
+
+    def counts(self) -> wofe.ClassCounts:
+        cells, deposits = self.cells.copy(), self.deposits.copy()
+        nodata_cells = nodata_deposits = 0
+        if self.nodata is not None and 0 <= self.nodata - self.offset < self.size:
+            index = self.nodata - self.offset
+            nodata_cells, nodata_deposits = int(cells[index]), int(deposits[index])
+            cells[index] = deposits[index] = 0
+        present = np.flatnonzero(cells)
+        out = wofe.ClassCounts.from_table(present + self.offset, cells[present], deposits[present],
+                                          nodata_cells, nodata_deposits)
+        out.merged_deposits, out.outside_deposits = self.merged, self.outside
+        return out
+
+
+def count_evidence(spec: SourceSpec, grid: Grid, deposits: DepositCells, feedback: Feedback,
+                   study: SourceSpec | None = None, breaks=None, kind: str = "categorical",
+                   progress_span: tuple[float, float] = (0.0, 1.0)) -> wofe.ClassCounts:
+    """Count cells and deposit cells per class of an evidence raster on ``grid``, block by block.
+
+    Parameters
+    ----------
+    spec : SourceSpec
+        The evidence band, already on ``grid``.
+    grid : Grid
+        The evidence grid.
+    deposits : DepositCells
+        Deposit points on ``grid``.
+    feedback : Feedback
+        Progress within ``progress_span`` and cancel (checked every block).
+    study : SourceSpec, optional
+        The study-area mask (1 inside) on ``grid``.
+    breaks : sequence of float, optional
+        Thresholds that turn continuous values into ordered classes
+        (:func:`favour_plugin.core.wofe.code_by_breaks`).
+    kind : str
+        Used with ``breaks``: ``ascending`` or ``descending``.
+
+    Returns
+    -------
+    ClassCounts
+    """
+    dense = False
+    data_type = None
+    raw_band = None
+    if breaks is None and os.path.exists(spec.target):
+        ds = gdal.Open(spec.target)
+        rb = ds.GetRasterBand(spec.band)
+        dense = (rb.DataType in _DENSE_TYPES and spec.scale == 1.0 and spec.offset == 0.0)
+        data_type = rb.DataType
+        rb = None
+        ds = None
+    reader = BlockReader()
+    counter = _DenseCounter(data_type, spec.nodata) if dense else None
+    counts = None if dense else wofe.ClassCounts()
+    total = count_windows(grid.width, grid.height)
+    start, end = progress_span
+    raw_ds = None
+    try:
+        if dense:
+            raw_ds = gdal.Open(spec.target)
+            raw_band = raw_ds.GetRasterBand(spec.band)
+        for i, window in enumerate(iter_windows(grid.width, grid.height)):
+            feedback.check_cancelled()
+            inside = None
+            if study is not None:
+                inside = reader.read(study, window) > 0.5
+            dep = deposits.block(window)
+            if dense:
+                raw = raw_band.ReadAsArray(window.col_off, window.row_off, window.width, window.height)
+                counter.add(raw, dep, inside)
+            else:
+                values = reader.read(spec, window)
+                if breaks is not None:
+                    values = wofe.code_by_breaks(values, breaks, kind)
+                counts.add_block(values, dep, inside)
+            feedback.set_progress(start + (end - start) * (i + 1) / total)
+    finally:
+        raw_band = None
+        raw_ds = None
+        reader.close()
+    return counter.counts() if dense else counts

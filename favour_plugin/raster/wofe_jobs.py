@@ -1,0 +1,536 @@
+"""Weights-of-evidence jobs on rasters: an evidence layer's weights table, and the posterior map.
+
+:func:`evidence_weights` counts one evidence raster against deposit points
+(block by block), writes the weights table (CSV), the best cut or the
+generalised classes as a raster with its own table, and a lineage record.
+:func:`posterior` combines generalised evidence rasters into the posterior
+probability per unit cell and its standard deviation, with the
+conditional-independence checks in an HTML report.
+
+Both follow the engine's rules: outputs are checked before any work,
+written to temporary files and renamed only on success; progress and cancel
+reach every block; every input is hashed into the lineage.
+"""
+
+from __future__ import annotations
+
+import os
+import platform
+import shutil
+import tempfile
+from dataclasses import dataclass, field
+
+import numpy as np
+from osgeo import gdal
+
+from .. import about
+from ..core import lineage as lin
+from ..core import wofe
+from ..core.errors import InputError, OutputError, ParameterError
+from ..core.feedback import Feedback
+from ..core.wofe_report import posterior_report_html
+from .blocks import count_windows, iter_windows
+from .checks import sample_values
+from .engine import input_files
+from .evidence import DepositCells, cell_area_km2, count_evidence, deposit_cells, study_area_source
+from .gdalenv import gdal_job
+from .grid import Grid
+from .sources import BlockReader, SourceSpec, open_raster, raster_source
+from .style import write_style
+from .writer import RasterWriter, check_folder, check_writable
+
+#: Breaks placed at quantiles of a sample when continuous ordered evidence comes without breaks.
+AUTO_BREAKS = 20
+
+
+def _atomic_text(path: str, text: str) -> None:
+    """Write ``text`` to ``path`` through a temporary file and a rename."""
+    tmp = f"{path}.partial"
+    try:
+        with open(tmp, "w", encoding="utf-8", newline="") as handle:
+            handle.write(text)
+        os.replace(tmp, path)
+    except OSError as exc:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise OutputError(f"cannot write {path}: {exc.strerror or exc}") from None
+
+
+def _check_text_output(path: str, suffixes: tuple[str, ...], what: str) -> str:
+    """Check a table or report output name and its folder; return the absolute path."""
+    path = os.path.abspath(path)
+    if not path.lower().endswith(suffixes):
+        raise OutputError(f"the {what} {path} must end in {' or '.join(suffixes)}")
+    check_folder(os.path.dirname(path))
+    return path
+
+
+def _describe_inputs(entries: list[tuple[str, str, bool]]) -> list[dict]:
+    """Return lineage input entries: role, path and each file's size and SHA-256."""
+    return [{"role": role, "path": path, "files": lin.describe_files(input_files(path, vector))}
+            for role, path, vector in entries]
+
+
+def _record(job: str, grid: Grid, inputs: list[dict], parameters: dict, feedback: Feedback,
+            created: str, **extra) -> dict:
+    """Return a lineage record for a weights-of-evidence job."""
+    return {"format": lin.FORMAT, "version": lin.VERSION, "job": job, "created": created,
+            "tool": {"name": about.NAME, "version": about.VERSION,
+                     "python": platform.python_version(), "numpy": np.__version__,
+                     "gdal": gdal.__version__},
+            "host": platform.platform(), "grid": grid.to_dict(), "inputs": inputs,
+            "parameters": parameters, "warnings": list(feedback.warnings), "seed": None,
+            "caution": lin.CAUTION, **extra}
+
+
+@dataclass
+class EvidenceResult:
+    """What :func:`evidence_weights` computed and wrote."""
+
+    table: wofe.WeightsTable
+    table_file: str
+    lineage_file: str
+    best: wofe.BestCut | None = None
+    generalised_file: str | None = None
+    generalised_table: wofe.WeightsTable | None = None
+    deposits: dict = field(default_factory=dict)
+
+
+def _auto_breaks(path: str, band: int, feedback: Feedback) -> list[float]:
+    """Return up to ``AUTO_BREAKS`` distinct thresholds at quantiles of a sample of the band."""
+    sample = sample_values(path, band)
+    if sample.size == 0:
+        raise InputError(f"the evidence {path} has no valid value")
+    levels = np.quantile(sample, np.linspace(0, 1, AUTO_BREAKS + 1)[1:-1])
+    breaks = sorted({float(v) for v in levels})
+    feedback.info(f"no breaks given: {len(breaks)} thresholds at quantiles of a sample of "
+                  f"{sample.size} cells")
+    return breaks
+
+
+def _is_integer_band(path: str, band: int) -> bool:
+    """Return True when a band stores whole-number codes (an integer data type, no scaling)."""
+    ds = open_raster(path, "evidence")
+    rb = ds.GetRasterBand(band)
+    integer = gdal.GetDataTypeName(rb.DataType).startswith(("Byte", "Int", "UInt")) \
+        and (rb.GetScale() or 1.0) == 1.0 and not (rb.GetOffset() or 0.0)
+    rb = None
+    ds = None
+    return integer
+
+
+def evidence_weights(evidence: str, deposits: str, method: str, output_table: str, band: int = 1,
+                     deposits_layer: str | None = None, unit_area_km2: float = 1.0,
+                     study_area: str | None = None, study_layer: str | None = None,
+                     breaks: list[float] | None = None, level: float = wofe.DEFAULT_LEVEL,
+                     small_count: str | None = None, generalise_mode: str = "ternary",
+                     output_generalised: str | None = None,
+                     feedback: Feedback | None = None) -> EvidenceResult:
+    """Weights of evidence of one evidence raster against deposit points.
+
+    Parameters
+    ----------
+    evidence : str
+        The evidence raster; its grid is the grid of the counts.
+    deposits : str
+        Deposit points (any OGR source; another CRS is reprojected, with a note).
+    method : {"binary", "categorical", "ascending", "descending"}
+        How classes make patterns (see core.wofe.WeightsTable).
+    output_table : str
+        The weights table to write (``.csv``); its lineage goes beside it.
+    band : int
+        Evidence band.
+    deposits_layer, study_layer : str, optional
+        Layer names within multi-layer sources.
+    unit_area_km2 : float
+        The unit cell, km².
+    study_area : str, optional
+        Polygon layer limiting the counts.
+    breaks : list of float, optional
+        Thresholds for ``ascending``/``descending`` evidence stored as
+        continuous values. Without them, integer bands use their own codes
+        and continuous bands get thresholds at quantiles of a sample.
+    level : float
+        Studentised-contrast level for the best cut and the generalisation.
+    small_count : {None, "haldane"}
+        The small-count rule, applied only when asked.
+    generalise_mode : {"ternary", "binary"}
+        For categorical evidence written to ``output_generalised``.
+    output_generalised : str, optional
+        Raster of the best cut (ordered and binary evidence: 1 on the
+        pattern, 0 off it) or of the generalised classes (categorical: 1
+        positive, 0 neutral, −1 negative; binary mode 1/0), with its own
+        table beside it (``<raster>.weights.csv``).
+    feedback : Feedback, optional
+        Progress, notes, warnings and cancel.
+
+    Raises
+    ------
+    FavourError
+        Bad parameters or inputs (no deposits, evidence all nodata, all
+        deposits in one class, non-integer categorical codes, a geographic
+        CRS); nothing is left under the output names.
+    """
+    feedback = feedback or Feedback()
+    if method not in wofe.KINDS:
+        raise ParameterError(f"method must be one of {', '.join(wofe.KINDS)}, got {method!r}")
+    if generalise_mode not in ("ternary", "binary"):
+        raise ParameterError(f"generalisation must be 'ternary' or 'binary', got {generalise_mode!r}")
+    output_table = _check_text_output(output_table, (".csv",), "weights table")
+    if output_generalised:
+        check_writable(output_generalised)
+        output_generalised = os.path.abspath(output_generalised)
+    created = lin.utc_now()
+    name = os.path.basename(evidence)
+    workdir = tempfile.mkdtemp(prefix=".favour-work-", dir=os.path.dirname(output_table))
+    writer = None
+    try:
+        with gdal_job():
+            grid = Grid.from_dataset(open_raster(evidence, name), f"the evidence {evidence}")
+            cell_km2 = cell_area_km2(grid)
+            spec = raster_source(evidence, band, grid, "nearest", name, feedback, workdir)
+            points = deposit_cells(deposits, deposits_layer, grid, feedback)
+            study = study_area_source(study_area, study_layer, grid, workdir)[0] if study_area else None
+            codes = None
+            ordered = method in ("ascending", "descending")
+            if breaks is not None and not ordered:
+                raise ParameterError(f"breaks apply to ascending or descending evidence, not {method}")
+            if ordered and breaks is None and not _is_integer_band(evidence, band):
+                breaks = _auto_breaks(evidence, band, feedback)
+            if breaks is not None:
+                codes = [float(b) for b in breaks]
+                wofe.code_by_breaks(np.zeros(1), codes, method)  # checks the breaks before counting
+            counts = count_evidence(spec, grid, points, feedback, study, codes, method, (0.05, 0.85))
+            # Caveats are reported once the rows carry their thresholds (and the whole-area row
+            # of break codes, which is no threshold, is gone).
+            table = _label_thresholds(wofe.weights_table(counts, method, unit_area_km2, cell_km2,
+                                                         small_count, name, Feedback()), codes)
+            wofe.report_table(table, feedback)
+            best = wofe.best_cut(table, level) if method in ("ascending", "descending") else None
+            if best is not None:
+                feedback.info(_describe_cut(best, name))
+            result = EvidenceResult(table, output_table, "", best, deposits=points.record)
+            if output_generalised:
+                writer = _generalised(result, counts, spec, grid, study, codes, method, level,
+                                      generalise_mode, output_generalised, feedback)
+            feedback.check_cancelled()
+            inputs = _describe_inputs([("evidence", evidence, False), ("deposits", deposits, True)]
+                                      + ([("study area", study_area, True)] if study_area else []))
+            parameters = {"method": method, "band": band, "unit_area_km2": unit_area_km2,
+                          "cell_area_km2": cell_km2, "breaks": codes, "level": level,
+                          "small_count": small_count, "generalise": generalise_mode}
+            record = _record("evidence-weights", grid, inputs, parameters, feedback, created,
+                             deposits=points.record, counts=counts.as_dict(), table=table.as_dict(),
+                             best_cut=None if best is None else best.__dict__,
+                             outputs={"table": output_table, "generalised": output_generalised})
+            if writer is not None:
+                generalised = {**record, "table": result.generalised_table.as_dict(),
+                               "source_table": table.as_dict(),
+                               "lineage_file": os.path.basename(str(lin.lineage_path(output_generalised)))}
+                writer.set_metadata(lin.summary_metadata(generalised, f"{name} generalised"))
+                result.generalised_file = writer.commit()
+                writer = None
+                generalised_table = output_generalised + ".weights.csv"
+                _atomic_text(generalised_table, result.generalised_table.to_csv(level))
+                lin.write_lineage(generalised, generalised_table)
+                lin.write_lineage(generalised, output_generalised)
+            _atomic_text(output_table, table.to_csv(level))
+            result.lineage_file = str(lin.write_lineage(record, output_table))
+            feedback.set_progress(1.0)
+            return result
+    except BaseException:
+        if writer is not None:
+            writer.abort()
+        raise
+    finally:
+        shutil.rmtree(workdir, ignore_errors=True)
+
+
+def _label_thresholds(table: wofe.WeightsTable, codes: list[float] | None) -> wofe.WeightsTable:
+    """Give the rows of a table counted on break codes the thresholds they stand for.
+
+    Code k of an ascending layer is the pattern "value ≤ t_k", of a
+    descending one "value ≥ t_k" (core.wofe.code_by_breaks), so row k takes
+    t_k. The code beyond every break (above the last for ascending, below the
+    first for descending) is the whole known area, not a threshold, and its
+    row is left out.
+    """
+    if codes is None:
+        return table
+    rows = []
+    for row in table.rows:
+        index = int(row["class"]) - 1
+        if 0 <= index < len(codes):
+            rows.append({**row, "class": codes[index]})
+    return wofe.WeightsTable(**{**table.__dict__, "rows": rows})
+
+
+def _describe_cut(best: wofe.BestCut, name: str) -> str:
+    """Return a one-line account of the best cut."""
+    if not best.found:
+        return f"{name}: no significant cut: {best.reason}"
+    sign = "≤" if best.kind == "ascending" else "≥"
+    return (f"{name}: best cut at value {sign} {best.threshold:g}: contrast {best.contrast:.3f}, "
+            f"studentised contrast {best.studentized_contrast:.2f} (level {best.level:g})")
+
+
+def _generalised(result: EvidenceResult, counts: wofe.ClassCounts, spec: SourceSpec, grid: Grid,
+                 study: SourceSpec | None, codes, method: str, level: float, mode: str,
+                 output: str, feedback: Feedback) -> RasterWriter | None:
+    """Stream the generalised evidence into a writer (not yet committed); return the writer."""
+    table = result.table
+    if method in ("ascending", "descending"):
+        best = result.best
+        if not best.found:
+            feedback.warning(f"{table.name}: {best.reason}; no generalised raster was written")
+            return None
+        cut_code = _cut_code(best.threshold, codes, method)
+        classes = counts.classes
+        on = classes <= cut_code if method == "ascending" else classes >= cut_code
+        mapping = {float(k): (1.0 if o else 0.0) for k, o in zip(classes, on)}
+        result.generalised_table = wofe.weights_table(counts.recode(mapping), "binary",
+                                                      table.unit_cell_km2, table.cell_area_km2,
+                                                      table.small_count, f"{table.name} (cut)", feedback)
+    elif method == "categorical":
+        generalisation = wofe.generalise(counts, table, mode, level, feedback)
+        mapping = generalisation.mapping
+        result.generalised_table = generalisation.table
+        feedback.info(f"{table.name}: generalised into {len(generalisation.groups)} groups: "
+                      + "; ".join(f"{int(g):d}: classes {', '.join(f'{c:g}' for c in cls)}"
+                                  for g, cls in generalisation.groups.items()))
+    else:
+        mapping = {0.0: 0.0, 1.0: 1.0}
+        result.generalised_table = table
+    keys = np.array(sorted(mapping))
+    values = np.array([mapping[k] for k in keys])
+    writer = RasterWriter(output, grid, f"{table.name} generalised", classes=True)
+    reader = BlockReader()
+    total = count_windows(grid.width, grid.height)
+    try:
+        for i, window in enumerate(iter_windows(grid.width, grid.height)):
+            feedback.check_cancelled()
+            block = reader.read(spec, window)
+            if codes is not None:
+                block = wofe.code_by_breaks(block, codes, method)
+            index = np.clip(np.searchsorted(keys, block), 0, keys.size - 1)
+            out = np.where(keys[index] == block, values[index], np.nan)
+            if study is not None:
+                out[reader.read(study, window) < 0.5] = np.nan
+            writer.write(window, out)
+            feedback.set_progress(0.85 + 0.1 * (i + 1) / total)
+    except BaseException:
+        writer.abort()
+        raise
+    finally:
+        reader.close()
+    return writer
+
+
+def _cut_code(threshold: float, codes: list[float] | None, method: str) -> float:
+    """Return the class code of a threshold (the code itself when no breaks were used)."""
+    if codes is None:
+        return threshold
+    return float(codes.index(threshold) + 1)
+
+
+# --------------------------------------------------------------------------- posterior
+
+
+@dataclass
+class PosteriorResult:
+    """What :func:`posterior` wrote, and the checks it made."""
+
+    probability_file: str
+    std_file: str
+    report_file: str | None
+    lineage_file: str
+    layers: list[wofe.LayerWeights]
+    prior: wofe.Prior
+    checks: dict
+
+
+def read_weights_table(path: str) -> wofe.WeightsTable:
+    """Read a weights table written by :func:`evidence_weights` through the lineage beside it."""
+    record = lin.read_lineage(path)
+    if "table" not in record:
+        raise InputError(f"{path} was not written by the weights-of-evidence job (no table in its lineage)")
+    return wofe.WeightsTable.from_dict(record["table"])
+
+
+def _layer_from_table(table: wofe.WeightsTable, name: str) -> wofe.LayerWeights:
+    """Per-class weights of a generalised layer's table (binary or categorical)."""
+    if table.kind not in ("binary", "categorical"):
+        raise InputError(f"{name}: its table is {table.kind}; the posterior takes generalised evidence "
+                         "(binary at a cut, or categorical classes): write OUTPUT_GENERALISED first")
+    return wofe.layer_weights(table)
+
+
+def posterior(evidence: list[str], deposits: str, output_probability: str, output_std: str,
+              output_report: str | None = None, tables: list[str] | None = None,
+              deposits_layer: str | None = None, unit_area_km2: float = 1.0,
+              study_area: str | None = None, study_layer: str | None = None,
+              s_p_rule: str = "delta", feedback: Feedback | None = None) -> PosteriorResult:
+    """Posterior probability per unit cell from generalised evidence, with its standard deviation.
+
+    Parameters
+    ----------
+    evidence : list of str
+        Generalised evidence rasters (binary 0/1, or class codes), band 1.
+        The first one's grid is the grid of the outputs; others are aligned
+        to it (nearest neighbour, with a warning).
+    deposits : str
+        Deposit points in the study area (the prior and the checks).
+    output_probability, output_std : str
+        GeoTIFFs of P and s(P).
+    output_report : str, optional
+        HTML report: prior, weights per layer, n, T, n/T, the Agterberg–Cheng
+        test, the pairwise chi-square matrix, deposit accounting.
+    tables : list of str, optional
+        One weights table (CSV written by :func:`evidence_weights`, with its
+        lineage) per evidence raster, e.g. counted in an analogue district.
+        Without them each layer's weights are counted here against
+        ``deposits`` (binary when its codes are 0 and 1, else categorical).
+    unit_area_km2 : float
+        The unit cell, km².
+    study_area, study_layer : str, optional
+        Polygon layer limiting the study area.
+    s_p_rule : {"delta", "relative"}
+        How s(P) follows from s(logit) (core.wofe.s_probability).
+    feedback : Feedback, optional
+        Progress, notes, warnings and cancel.
+    """
+    feedback = feedback or Feedback()
+    if not evidence:
+        raise ParameterError("the posterior needs at least one evidence raster")
+    if tables is not None and len(tables) != len(evidence):
+        raise ParameterError(f"{len(tables)} weights tables for {len(evidence)} evidence rasters; give "
+                             "one per raster, in the same order, or none")
+    for path in (output_probability, output_std):
+        check_writable(path)
+    if output_report:
+        output_report = _check_text_output(output_report, (".html", ".htm"), "report")
+    output_probability, output_std = os.path.abspath(output_probability), os.path.abspath(output_std)
+    created = lin.utc_now()
+    names = _unique_names(evidence)
+    workdir = tempfile.mkdtemp(prefix=".favour-work-", dir=os.path.dirname(output_probability))
+    writers: list[RasterWriter] = []
+    try:
+        with gdal_job():
+            grid = Grid.from_dataset(open_raster(evidence[0], names[0]), f"the evidence {evidence[0]}")
+            cell_km2 = cell_area_km2(grid)
+            specs = [raster_source(path, 1, grid, "nearest", name, feedback, workdir)
+                     for path, name in zip(evidence, names)]
+            points = deposit_cells(deposits, deposits_layer, grid, feedback)
+            study = study_area_source(study_area, study_layer, grid, workdir)[0] if study_area else None
+            conditions = _count_conditions(specs, names, grid, points, study, feedback, (0.0, 0.45))
+            layers = []
+            for j, name in enumerate(names):
+                if tables is not None:
+                    table = read_weights_table(tables[j])
+                else:
+                    counts = conditions.marginal(j)
+                    classes = counts.classes
+                    kind = "binary" if set(classes.tolist()) <= {0.0, 1.0} else "categorical"
+                    table = wofe.weights_table(counts, kind, unit_area_km2, cell_km2, None, name, feedback)
+                layers.append(_layer_from_table(table, name))
+            prior = wofe.study_prior(int(conditions.cells.sum()), int(conditions.deposit_cells.sum()),
+                                     unit_area_km2, cell_km2)
+            checks = wofe.conditional_independence(conditions, layers, unit_area_km2, cell_km2, prior,
+                                                   s_p_rule, feedback=feedback)
+            writers.append(RasterWriter(output_probability, grid, "posterior probability per unit cell"))
+            writers.append(RasterWriter(output_std, grid, "standard deviation of the posterior"))
+            highest = _write_posterior(specs, layers, prior, grid, study, writers, s_p_rule, feedback,
+                                       (0.45, 0.95))
+            feedback.check_cancelled()
+            entries = [("evidence", p, False) for p in evidence] + [("deposits", deposits, True)]
+            entries += [("weights table", t, False) for t in tables or ()]
+            entries += [("study area", study_area, True)] if study_area else []
+            parameters = {"unit_area_km2": unit_area_km2, "cell_area_km2": cell_km2,
+                          "s_p_rule": s_p_rule, "tables_given": tables is not None}
+            summary = {"prior": prior.__dict__, "layers": [_layer_summary(layer) for layer in layers],
+                       "checks": checks, "deposits": points.record}
+            record = _record("posterior", grid, _describe_inputs(entries), parameters, feedback,
+                             created, summary=summary,
+                             outputs={"probability": output_probability, "std": output_std,
+                                      "report": output_report})
+            for writer, role in zip(writers, ("posterior probability", "its standard deviation")):
+                writer.set_metadata(lin.summary_metadata(
+                    {**record, "lineage_file": os.path.basename(str(lin.lineage_path(writer.path)))},
+                    role))
+            for writer, top in zip(list(writers), highest):
+                path = writer.commit()
+                writers.remove(writer)
+                lin.write_lineage(record, path)
+                write_style(path, 0.0, max(top, 1e-12))
+            lineage_file = str(lin.lineage_path(output_probability))
+            if output_report:
+                _atomic_text(output_report, posterior_report_html(record, names))
+            feedback.set_progress(1.0)
+            return PosteriorResult(output_probability, output_std, output_report, lineage_file,
+                                   layers, prior, checks)
+    except BaseException:
+        for writer in writers:
+            writer.abort()
+        raise
+    finally:
+        shutil.rmtree(workdir, ignore_errors=True)
+
+
+def _unique_names(paths: list[str]) -> list[str]:
+    """Return a distinct layer name per path (the file name, numbered when two agree)."""
+    names, seen = [], {}
+    for path in paths:
+        base = os.path.splitext(os.path.basename(path))[0]
+        seen[base] = seen.get(base, 0) + 1
+        names.append(base if seen[base] == 1 else f"{base} ({seen[base]})")
+    return names
+
+
+def _layer_summary(layer: wofe.LayerWeights) -> dict:
+    """Plain data of a layer's per-class weights for the lineage and the report."""
+    return {"name": layer.name, "classes": layer.classes.tolist(), "weights": layer.weights.tolist(),
+            "s_weights": np.sqrt(layer.variances).tolist(), "fractions": layer.fractions.tolist()}
+
+
+def _count_conditions(specs, names, grid, points: DepositCells, study, feedback, span):
+    """Count cells and deposit cells per unique condition of all layers, block by block."""
+    conditions = wofe.ConditionCounts(names)
+    reader = BlockReader()
+    total = count_windows(grid.width, grid.height)
+    try:
+        for i, window in enumerate(iter_windows(grid.width, grid.height)):
+            feedback.check_cancelled()
+            blocks = [reader.read(spec, window) for spec in specs]
+            inside = reader.read(study, window) > 0.5 if study is not None else None
+            conditions.add_block(blocks, points.block(window), inside)
+            feedback.set_progress(span[0] + (span[1] - span[0]) * (i + 1) / total)
+    finally:
+        reader.close()
+    return conditions
+
+
+def _write_posterior(specs, layers, prior, grid, study, writers, s_p_rule, feedback, span
+                     ) -> tuple[float, float]:
+    """Stream P and s(P) into the two writers (outside the study area nodata); return their maxima."""
+    highest = [0.0, 0.0]
+    reader = BlockReader()
+    total = count_windows(grid.width, grid.height)
+    try:
+        for i, window in enumerate(iter_windows(grid.width, grid.height)):
+            feedback.check_cancelled()
+            blocks = [reader.read(spec, window) for spec in specs]
+            result = wofe.posterior_block(blocks, layers, prior, s_p_rule)
+            probability, spread = result.probability, result.s_probability
+            if study is not None:
+                outside = reader.read(study, window) < 0.5
+                probability = np.where(outside, np.nan, probability)
+                spread = np.where(outside, np.nan, spread)
+            writers[0].write(window, probability)
+            writers[1].write(window, spread)
+            for k, values in enumerate((probability, spread)):
+                if np.isfinite(values).any():
+                    highest[k] = max(highest[k], float(np.nanmax(values)))
+            feedback.set_progress(span[0] + (span[1] - span[0]) * (i + 1) / total)
+    finally:
+        reader.close()
+    return highest[0], highest[1]
