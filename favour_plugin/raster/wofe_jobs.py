@@ -284,7 +284,7 @@ def _generalised(result: EvidenceResult, counts: wofe.ClassCounts, spec: SourceS
         if not best.found:
             feedback.warning(f"{table.name}: {best.reason}; no generalised raster was written")
             return None
-        cut_code = _cut_code(best.threshold, codes, method)
+        cut_code = _cut_code(best.threshold, codes)
         classes = counts.classes
         on = classes <= cut_code if method == "ascending" else classes >= cut_code
         mapping = {float(k): (1.0 if o else 0.0) for k, o in zip(classes, on)}
@@ -326,7 +326,7 @@ def _generalised(result: EvidenceResult, counts: wofe.ClassCounts, spec: SourceS
     return writer
 
 
-def _cut_code(threshold: float, codes: list[float] | None, method: str) -> float:
+def _cut_code(threshold: float, codes: list[float] | None) -> float:
     """Return the class code of a threshold (the code itself when no breaks were used)."""
     if codes is None:
         return threshold
