@@ -37,6 +37,7 @@ package: $(STAMP)
 
 bench: $(STAMP)
 	$(PY) bench/bench_evaluate.py
+	$(PY) bench/bench_evidence.py
 
 clean:
 	rm -rf build favour_plugin.zip .pytest_cache .ruff_cache

@@ -35,31 +35,37 @@ import json
 import math
 import os
 import shutil
-import subprocess
 import sys
 import time
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
+import common
 import numpy as np
+from common import (
+    CELL,
+    ORIGIN,
+    QGIS_PROCESS,
+    ROOT,
+    Field,
+    Measure,
+    Qgis,
+    folder_bytes,
+    fresh,
+    mb,
+    run_child,
+    srs,
+    verdict,
+)
 from osgeo import gdal, osr
 
-ROOT = Path(__file__).resolve().parent.parent
-if str(ROOT) not in sys.path:
-    sys.path.insert(0, str(ROOT))
-
-from favour_plugin.raster.blocks import iter_windows  # noqa: E402
+from favour_plugin.raster.blocks import iter_windows
 
 gdal.UseExceptions()
 osr.UseExceptions()
 
 # -- what is built -------------------------------------------------------------
 
-#: The local transverse Mercator over open ocean of tests/helpers.py TEST_CRS.
-CRS = ("+proj=tmerc +lat_0=-48 +lon_0=-125 +k=1 +x_0=500000 +y_0=1000000 "
-       "+datum=WGS84 +units=m +no_defs")
-ORIGIN = (500000.0, 1020000.0)
-CELL = 25.0
 GENERATOR = 1  # bump when the fields change, so old inputs are rebuilt
 SEED = 20240611
 GAMMA = 0.9
@@ -87,7 +93,6 @@ TARGET_PEAK_MB = 300.0  # peak memory of (c) at most
 GROWTH_ALLOWED = 0.10  # peak at the doubled grid within 10 % of the first (our own threshold)
 TOLERANCE = 1e-5  # (b) and (c) agree within this on valid cells
 
-QGIS_PROCESS = "/usr/bin/qgis_process.bin"
 # The first one this QGIS lists is used. QGIS 3.22 has only the Python
 # qgis:rastercalculator; newer releases have a C++ port (native:rastercalc,
 # from memory) with the same EXPRESSION, LAYERS and OUTPUT parameters.
@@ -106,50 +111,6 @@ def bounds(offset: float, scale: float, rises: bool) -> tuple[float, float]:
 
 
 # -- synthetic proxies --------------------------------------------------------
-
-
-def srs() -> osr.SpatialReference:
-    """Return the benchmark's CRS with x, y axis order."""
-    ref = osr.SpatialReference()
-    ref.SetFromUserInput(CRS)
-    ref.SetAxisMappingStrategy(osr.OAMS_TRADITIONAL_GIS_ORDER)
-    return ref
-
-
-class Field:
-    """A smooth random field: a sum of plane waves plus a little white noise.
-
-    Wavelengths run from 40 to 4000 cells with amplitudes rising with the
-    wavelength, so the field looks like a gridded survey; the noise (1 % of
-    the spread) keeps the low mantissa bits busy, as in real data. Values are
-    standardised (mean 0, spread about 1). Each strip of rows is computed on
-    its own from the seed, so memory stays at one strip whatever the size.
-    """
-
-    WAVES = 16
-
-    def __init__(self, seed: int) -> None:
-        rng = np.random.default_rng(seed)
-        self.seed = seed
-        wavelength = np.exp(rng.uniform(np.log(40.0), np.log(4000.0), self.WAVES))
-        angle = rng.uniform(0.0, np.pi, self.WAVES)
-        self.kx = 2 * np.pi * np.cos(angle) / wavelength
-        self.ky = 2 * np.pi * np.sin(angle) / wavelength
-        self.phase = rng.uniform(0.0, 2 * np.pi, self.WAVES)
-        amplitude = (wavelength / 4000.0) ** 0.5
-        self.amplitude = amplitude / np.sqrt(0.5 * np.sum(amplitude ** 2))
-
-    def strip(self, row: int, rows: int, width: int) -> np.ndarray:
-        """Return rows ``row`` to ``row + rows`` of the field (float64, standardised)."""
-        x = np.arange(width, dtype=np.float64)
-        y = np.arange(row, row + rows, dtype=np.float64)
-        out = np.zeros((rows, width))
-        for a, kx, ky, ph in zip(self.amplitude, self.kx, self.ky, self.phase):
-            # cos(kx x + ky y + φ) = cos(kx x + φ) cos(ky y) − sin(kx x + φ) sin(ky y)
-            out += np.outer(a * np.cos(ky * y), np.cos(kx * x + ph))
-            out -= np.outer(a * np.sin(ky * y), np.sin(kx * x + ph))
-        noise = np.random.default_rng([self.seed, row]).standard_normal((rows, width))
-        return out + 0.01 * noise
 
 
 def nodata_cells(seed: int, size: int) -> list[tuple[int, int]]:
@@ -250,72 +211,9 @@ def input_paths(folder: Path) -> list[str]:
 # -- children: each stage in a process of its own -----------------------------
 
 
-class Measure:
-    """Wall time (s) and peak resident memory (MB) of one child process."""
-
-    def __init__(self, label: str, seconds: float, peak_mb: float, inner: float | None = None):
-        self.label = label
-        self.seconds = seconds
-        self.peak_mb = peak_mb
-        self.inner = inner  # seconds the child measured itself, without start-up
-
-    def __repr__(self) -> str:
-        return f"{self.label}: {self.seconds:.1f} s, {self.peak_mb:.0f} MB"
-
-
-# A small launcher between this script and each measured child. ``ru_maxrss`` of
-# a child started straight from here would start at this script's own peak
-# (Linux carries the peak of the address space the child was forked, or
-# vforked, from across exec), so every child is forked from this small
-# interpreter instead, which reports its child's ru_maxrss (KiB) to a file.
-LAUNCHER = """\
-import os, sys
-pid = os.fork()
-if pid == 0:
-    try:
-        os.execvp(sys.argv[2], sys.argv[2:])
-    finally:
-        os._exit(127)
-_, status, usage = os.wait4(pid, 0)
-with open(sys.argv[1], "w") as out:
-    out.write(str(usage.ru_maxrss))
-sys.exit(os.waitstatus_to_exitcode(status))
-"""
-
-
-def run_child(label: str, args: list[str], env: dict, log: Path, result: Path | None = None,
-              quiet: bool = False) -> Measure:
-    """Run ``args`` as a child; return its wall time and its own peak RSS.
-
-    The child is started through :data:`LAUNCHER`, whose own size (about
-    10 MB) bounds the error of the peak. The child's output goes to ``log``;
-    a non-zero exit stops the benchmark.
-    """
-    log.parent.mkdir(parents=True, exist_ok=True)
-    rss_file = log.with_suffix(".maxrss")
-    for stale in (result, rss_file):
-        if stale is not None and stale.exists():
-            stale.unlink()
-    with open(log, "w") as out:
-        start = time.perf_counter()
-        code = subprocess.call([sys.executable, "-S", "-c", LAUNCHER, str(rss_file), *args],
-                               env=env, stdout=out, stderr=subprocess.STDOUT,
-                               stdin=subprocess.DEVNULL)
-        seconds = time.perf_counter() - start
-    if code != 0:
-        tail = log.read_text(errors="replace")[-3000:]
-        sys.exit(f"{label} failed (exit {code}); the end of {log}:\n{tail}")
-    inner = json.loads(result.read_text())["seconds"] if result is not None else None
-    measure = Measure(label, seconds, int(rss_file.read_text()) / 1024.0, inner)
-    if not quiet:
-        print(f"  {measure}" + (f" (inside the child {inner:.1f} s)" if inner is not None else ""),
-              flush=True)
-    return measure
-
-
 def python_child(kind: str, *args: str) -> list[str]:
     """Return the command running this script's ``--child kind`` in a new interpreter."""
-    return [sys.executable, str(Path(__file__).resolve()), "--child", kind, *args]
+    return common.python_child(__file__, kind, *args)
 
 
 def child_idle(result: str) -> None:
@@ -495,31 +393,6 @@ CHILDREN = {"idle": child_idle, "floor": child_floor, "core": child_core, "profi
 # -- QGIS ---------------------------------------------------------------------
 
 
-class Qgis:
-    """Runs ``qgis_process.bin`` with an isolated profile, optionally with Favour enabled."""
-
-    def __init__(self, profile: Path, with_plugin: bool) -> None:
-        profile.mkdir(parents=True, exist_ok=True)
-        self.env = dict(os.environ, QGIS_CUSTOM_CONFIG_PATH=str(profile), QT_QPA_PLATFORM="offscreen")
-        if with_plugin:
-            self.env["QGIS_PLUGINPATH"] = str(ROOT)
-            done = subprocess.run([QGIS_PROCESS, "plugins", "enable", "favour_plugin"],
-                                  env=self.env, capture_output=True, text=True, timeout=300)
-            # A profile kept from an earlier run answers "already enabled" with exit 1.
-            if done.returncode != 0 and "already enabled" not in done.stdout + done.stderr:
-                sys.exit(f"cannot enable favour_plugin in {profile}:\n{done.stdout}{done.stderr}")
-
-    def algorithms(self) -> str:
-        """Return the output of ``qgis_process.bin list``."""
-        return subprocess.run([QGIS_PROCESS, "list"], env=self.env, check=True,
-                              capture_output=True, text=True, timeout=300).stdout
-
-    def run(self, label: str, algorithm: str, params: list[tuple[str, object]], log: Path) -> Measure:
-        """Run one algorithm; ``params`` may repeat a key (a multi-layer parameter)."""
-        args = [QGIS_PROCESS, "run", algorithm, "--"] + [f"{k}={v}" for k, v in params]
-        return run_child(label, args, self.env, log)
-
-
 def calculator_id(qgis: Qgis) -> str:
     """Return the raster calculator this QGIS has (the native one where it exists)."""
     listing = qgis.algorithms()
@@ -598,25 +471,6 @@ def compare(first: str, second: str) -> dict:
 
 
 # -- the run ------------------------------------------------------------------
-
-
-def folder_bytes(folder: Path) -> int:
-    """Return the bytes of the files directly in ``folder``."""
-    return sum(p.stat().st_size for p in folder.iterdir() if p.is_file())
-
-
-def fresh(path: Path) -> str:
-    """Remove an earlier output at ``path`` (and its sidecars); return the path as text."""
-    for p in path.parent.glob(path.name + "*"):
-        p.unlink()
-    for p in path.parent.glob(path.stem + ".qml"):
-        p.unlink()
-    return str(path)
-
-
-def mb(value: float) -> str:
-    """Format megabytes."""
-    return f"{value:.0f} MB"
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -779,11 +633,6 @@ def run_double(work: Path, size: int, inputs_dir: Path, favour: Qgis, env: dict,
                            python_child("core", str(result), tree, fresh(out / "core.tif"),
                                         str(threads)), env, logs / "c2-core.log", result)
     return "run"
-
-
-def verdict(ok: bool) -> str:
-    """Return PASS or MISS."""
-    return "PASS" if ok else "MISS"
 
 
 def summary(m: dict, agree: dict, manifest: dict, size: int, threads: int, calculator: str,

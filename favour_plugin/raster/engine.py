@@ -18,8 +18,6 @@ import platform
 import shutil
 import tempfile
 import threading
-from collections import deque
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -34,11 +32,10 @@ from .blocks import BLOCK_COLS, BLOCK_ROWS, count_windows, iter_windows
 from .gdalenv import gdal_job, set_stream_cache
 from .grid import Grid
 from .sources import BlockReader, SourceSpec, cache_need, open_raster, raster_source
+from .streaming import DEFAULT_THREADS, map_windows
 from .style import write_style
 from .vector import vector_source
 from .writer import RasterWriter, check_folder, check_writable
-
-DEFAULT_THREADS = max(1, min(2, os.cpu_count() or 1))
 
 
 @dataclass
@@ -290,21 +287,12 @@ def _stream(plan: EvaluationPlan, sources: dict[str, SourceSpec], grid: Grid,
             span: tuple[float, float]) -> dict[str, dict]:
     """Read, evaluate and write every block; return per-node statistics.
 
-    Workers each hold their own GDAL handles (a handle must not be shared
-    between threads) and return the block's μ and statistics; the calling
-    thread writes blocks in order, so the output never depends on timing.
+    Workers read the block and return its μ and statistics; this thread
+    writes the blocks in order (``map_windows``).
     """
     keep = list(writers) + [leaf.path for leaf in plan.leaves]
-    local = threading.local()
-    readers: list[BlockReader] = []
-    readers_lock = threading.Lock()
 
-    def work(window):
-        reader = getattr(local, "reader", None)
-        if reader is None:
-            reader = local.reader = BlockReader()
-            with readers_lock:
-                readers.append(reader)
+    def work(window, reader):
         by_key: dict[str, np.ndarray] = {}
         values = {}
         for leaf in plan.leaves:
@@ -315,37 +303,14 @@ def _stream(plan: EvaluationPlan, sources: dict[str, SourceSpec], grid: Grid,
         results = plan.evaluate_block(values, keep)
         block_stats = {path: lin.NodeStatistics.of_block(array, histogram=path in writers)
                        for path, array in results.items()}
-        return window, {path: results[path] for path in writers}, block_stats
+        return {path: results[path] for path in writers}, block_stats
 
-    total = count_windows(grid.width, grid.height)
     totals = {path: lin.NodeStatistics(histogram=path in writers) for path in keep}
-    pending: deque = deque()
-    windows = iter_windows(grid.width, grid.height)
-    done = 0
-    pool = ThreadPoolExecutor(max_workers=threads, thread_name_prefix="favour-block")
-    try:
-        while True:
-            while len(pending) < 2 * threads:
-                window = next(windows, None)
-                if window is None:
-                    break
-                pending.append(pool.submit(work, window))
-            if not pending:
-                break
-            feedback.check_cancelled()
-            window, arrays, block_stats = pending.popleft().result()
-            for path, array in arrays.items():
-                writers[path].write(window, array)
-            for path, s in block_stats.items():
-                totals[path].merge(s)
-            done += 1
-            feedback.set_progress(span[0] + (span[1] - span[0]) * done / total)
-    finally:
-        for future in pending:
-            future.cancel()
-        pool.shutdown(wait=True)
-        for reader in readers:
-            reader.close()
+    for window, (arrays, block_stats) in map_windows(work, grid, feedback, threads, span):
+        for path, array in arrays.items():
+            writers[path].write(window, array)
+        for path, stats in block_stats.items():
+            totals[path].merge(stats)
     return {path: s.to_dict() for path, s in totals.items()}
 
 

@@ -23,9 +23,10 @@ from osgeo import gdal, osr
 from ..core import wofe
 from ..core.errors import GridError, InputError
 from ..core.feedback import Feedback
-from .blocks import Window, count_windows, iter_windows
+from .blocks import Window
 from .grid import Grid, crs_label
-from .sources import BlockReader, SourceSpec
+from .sources import SourceSpec
+from .streaming import map_windows
 from .vector import read_layer_facts
 
 # Band types counted by a dense histogram: their codes span at most 65 536 values.
@@ -65,13 +66,19 @@ class DepositCells:
     outside_grid: int
     record: dict
 
-    def block(self, window: Window) -> np.ndarray:
-        """Return the number of points in each cell of ``window`` (int64 array)."""
-        out = np.zeros(window.shape, dtype=np.int64)
+    def in_window(self, window: Window) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Return (rows, columns within the window, point counts) of the deposit cells in it."""
         start, stop = np.searchsorted(self.rows, [window.row_off, window.row_off + window.height])
         rows, cols = self.rows[start:stop], self.cols[start:stop]
         inside = (cols >= window.col_off) & (cols < window.col_off + window.width)
-        out[rows[inside] - window.row_off, cols[inside] - window.col_off] = self.counts[start:stop][inside]
+        return (rows[inside] - window.row_off, cols[inside] - window.col_off,
+                self.counts[start:stop][inside])
+
+    def block(self, window: Window) -> np.ndarray:
+        """Return the number of points in each cell of ``window`` (int64 array)."""
+        out = np.zeros(window.shape, dtype=np.int64)
+        rows, cols, counts = self.in_window(window)
+        out[rows, cols] = counts
         return out
 
     @property
@@ -182,8 +189,15 @@ def _srs(wkt: str) -> osr.SpatialReference:
     return ref
 
 
-class _DenseCounter:
-    """Cells and deposit cells per code of an integer band, as dense histograms."""
+class DenseCounts:
+    """Cells and deposit cells per code of an integer band, as dense histograms over its code range.
+
+    :meth:`of_block` counts one window; blocks add up with ``+=``; :meth:`counts`
+    turns the totals into :class:`~favour_plugin.core.wofe.ClassCounts` with the
+    band's nodata code moved to the nodata counts. The counting rules are
+    core.wofe's: a deposit cell counts once whatever its points, the extra
+    points are merged, points outside the study area are reported.
+    """
 
     def __init__(self, data_type: int, nodata: float | None) -> None:
         self.offset, self.size = _DENSE_TYPES[data_type]
@@ -193,24 +207,33 @@ class _DenseCounter:
         self.merged = 0
         self.outside = 0
 
-    def add(self, raw: np.ndarray, deposits: np.ndarray | None, inside: np.ndarray | None) -> None:
-        codes = raw.ravel().astype(np.int64) - self.offset if self.offset else raw.ravel()
-        if inside is None:
-            self.cells += np.bincount(codes, minlength=self.size)
+    def of_block(self, raw: np.ndarray, deposits: tuple, inside: np.ndarray | None) -> DenseCounts:
+        """Return the counts of one window: its raw codes, its deposit cells, its study mask."""
+        block = DenseCounts.__new__(DenseCounts)
+        block.offset, block.size, block.nodata = self.offset, self.size, self.nodata
+        codes = raw.astype(np.int64) - self.offset if self.offset else raw
+        flat = codes.ravel() if inside is None else codes[inside]
+        block.cells = np.bincount(flat, minlength=self.size)
+        rows, cols, counts = deposits
+        if inside is not None and rows.size:
+            keep = inside[rows, cols]
+            block.outside = int(counts[~keep].sum())
+            rows, cols, counts = rows[keep], cols[keep], counts[keep]
         else:
-            self.cells += np.bincount(codes[inside.ravel()], minlength=self.size)
-        if deposits is not None:
-            dep = deposits.ravel()
-            hit = np.flatnonzero(dep)
-            if hit.size:
-                if inside is not None:
-                    keep = inside.ravel()[hit]
-                    self.outside += int(dep[hit[~keep]].sum())
-                    hit = hit[keep]
-                self.merged += int(np.maximum(dep[hit] - 1, 0).sum())
-                np.add.at(self.deposits, np.asarray(codes[hit], dtype=np.int64), 1)
+            block.outside = 0
+        block.merged = int(np.maximum(counts - 1, 0).sum())
+        block.deposits = np.bincount(np.asarray(codes[rows, cols], dtype=np.int64), minlength=self.size)
+        return block
+
+    def __iadd__(self, other: DenseCounts) -> DenseCounts:
+        self.cells += other.cells
+        self.deposits += other.deposits
+        self.merged += other.merged
+        self.outside += other.outside
+        return self
 
     def counts(self) -> wofe.ClassCounts:
+        """Return the totals as ClassCounts (codes present only, nodata code apart)."""
         cells, deposits = self.cells.copy(), self.deposits.copy()
         nodata_cells = nodata_deposits = 0
         if self.nodata is not None and 0 <= self.nodata - self.offset < self.size:
@@ -224,9 +247,22 @@ class _DenseCounter:
         return out
 
 
+def dense_type(spec: SourceSpec) -> int | None:
+    """Return the band's GDAL type if its codes can be counted densely (integer, unscaled), else None."""
+    if spec.scale != 1.0 or spec.offset != 0.0 or not os.path.exists(spec.target):
+        return None
+    ds = gdal.Open(spec.target)
+    rb = ds.GetRasterBand(spec.band)
+    data_type = rb.DataType
+    rb = None
+    ds = None
+    return data_type if data_type in _DENSE_TYPES else None
+
+
 def count_evidence(spec: SourceSpec, grid: Grid, deposits: DepositCells, feedback: Feedback,
                    study: SourceSpec | None = None, breaks=None, kind: str = "categorical",
-                   progress_span: tuple[float, float] = (0.0, 1.0)) -> wofe.ClassCounts:
+                   progress_span: tuple[float, float] = (0.0, 1.0),
+                   threads: int | None = None) -> wofe.ClassCounts:
     """Count cells and deposit cells per class of an evidence raster on ``grid``, block by block.
 
     Parameters
@@ -246,48 +282,36 @@ def count_evidence(spec: SourceSpec, grid: Grid, deposits: DepositCells, feedbac
         (:func:`favour_plugin.core.wofe.code_by_breaks`).
     kind : str
         Used with ``breaks``: ``ascending`` or ``descending``.
+    threads : int, optional
+        Worker threads (default up to 2).
 
     Returns
     -------
     ClassCounts
     """
-    dense = False
-    data_type = None
-    raw_band = None
-    if breaks is None and os.path.exists(spec.target):
-        ds = gdal.Open(spec.target)
-        rb = ds.GetRasterBand(spec.band)
-        dense = (rb.DataType in _DENSE_TYPES and spec.scale == 1.0 and spec.offset == 0.0)
-        data_type = rb.DataType
-        rb = None
-        ds = None
-    reader = BlockReader()
-    counter = _DenseCounter(data_type, spec.nodata) if dense else None
-    counts = None if dense else wofe.ClassCounts()
-    total = count_windows(grid.width, grid.height)
-    start, end = progress_span
-    raw_ds = None
-    try:
-        if dense:
-            raw_ds = gdal.Open(spec.target)
-            raw_band = raw_ds.GetRasterBand(spec.band)
-        for i, window in enumerate(iter_windows(grid.width, grid.height)):
-            feedback.check_cancelled()
-            inside = None
-            if study is not None:
-                inside = reader.read(study, window) > 0.5
-            dep = deposits.block(window)
-            if dense:
-                raw = raw_band.ReadAsArray(window.col_off, window.row_off, window.width, window.height)
-                counter.add(raw, dep, inside)
-            else:
-                values = reader.read(spec, window)
-                if breaks is not None:
-                    values = wofe.code_by_breaks(values, breaks, kind)
-                counts.add_block(values, dep, inside)
-            feedback.set_progress(start + (end - start) * (i + 1) / total)
-    finally:
-        raw_band = None
-        raw_ds = None
-        reader.close()
-    return counter.counts() if dense else counts
+    data_type = dense_type(spec) if breaks is None else None
+
+    def inside_of(window, reader):
+        return reader.read(study, window) > 0.5 if study is not None else None
+
+    if data_type is not None:
+        total = DenseCounts(data_type, spec.nodata)
+
+        def dense(window, reader):
+            return total.of_block(reader.read_raw(spec, window), deposits.in_window(window),
+                                  inside_of(window, reader))
+
+        for _, block in map_windows(dense, grid, feedback, threads, progress_span):
+            total += block
+        return total.counts()
+
+    def general(window, reader):
+        values = reader.read(spec, window)
+        if breaks is not None:
+            values = wofe.code_by_breaks(values, breaks, kind)
+        return wofe.ClassCounts.from_arrays(values, deposits.block(window), inside_of(window, reader))
+
+    counts = wofe.ClassCounts()
+    for _, block in map_windows(general, grid, feedback, threads, progress_span):
+        counts = counts.merge(block)
+    return counts

@@ -209,14 +209,22 @@ class BlockReader:
     def __init__(self) -> None:
         self._handles: dict[str, tuple] = {}
 
-    def read(self, spec: SourceSpec, window: Window) -> np.ndarray:
-        """Return the proxy's values on ``window`` as float64 with NaN for nodata."""
+    def _band(self, spec: SourceSpec) -> gdal.Band:
         handle = self._handles.get(spec.key)
         if handle is None:
             ds = gdal.Open(spec.target, gdal.GA_ReadOnly)
             handle = (ds, ds.GetRasterBand(spec.band))
             self._handles[spec.key] = handle
-        return read_window(handle[1], window, spec.nodata, spec.scale, spec.offset)
+        return handle[1]
+
+    def read(self, spec: SourceSpec, window: Window) -> np.ndarray:
+        """Return the proxy's values on ``window`` as float64 with NaN for nodata."""
+        return read_window(self._band(spec), window, spec.nodata, spec.scale, spec.offset)
+
+    def read_raw(self, spec: SourceSpec, window: Window) -> np.ndarray:
+        """Return the band's stored values on ``window`` (native type, nodata not masked)."""
+        return self._band(spec).ReadAsArray(window.col_off, window.row_off, window.width,
+                                            window.height)
 
     def close(self) -> None:
         """Close every dataset this reader opened (each band before its dataset)."""

@@ -29,13 +29,21 @@ from ..core import wofe
 from ..core.errors import InputError, OutputError, ParameterError
 from ..core.feedback import Feedback
 from ..core.wofe_report import posterior_report_html
-from .blocks import count_windows, iter_windows
 from .checks import sample_values
 from .engine import input_files
-from .evidence import DepositCells, cell_area_km2, count_evidence, deposit_cells, study_area_source
+from .evidence import (
+    DenseCounts,
+    DepositCells,
+    cell_area_km2,
+    count_evidence,
+    dense_type,
+    deposit_cells,
+    study_area_source,
+)
 from .gdalenv import gdal_job
 from .grid import Grid
-from .sources import BlockReader, SourceSpec, open_raster, raster_source
+from .sources import SourceSpec, open_raster, raster_source
+from .streaming import map_windows
 from .style import write_style
 from .writer import RasterWriter, check_folder, check_writable
 
@@ -301,29 +309,51 @@ def _generalised(result: EvidenceResult, counts: wofe.ClassCounts, spec: SourceS
     else:
         mapping = {0.0: 0.0, 1.0: 1.0}
         result.generalised_table = table
-    keys = np.array(sorted(mapping))
-    values = np.array([mapping[k] for k in keys])
     writer = RasterWriter(output, grid, f"{table.name} generalised", classes=True)
-    reader = BlockReader()
-    total = count_windows(grid.width, grid.height)
+    recode = _recoder(mapping, spec, codes, method)
     try:
-        for i, window in enumerate(iter_windows(grid.width, grid.height)):
-            feedback.check_cancelled()
-            block = reader.read(spec, window)
-            if codes is not None:
-                block = wofe.code_by_breaks(block, codes, method)
-            index = np.clip(np.searchsorted(keys, block), 0, keys.size - 1)
-            out = np.where(keys[index] == block, values[index], np.nan)
-            if study is not None:
-                out[reader.read(study, window) < 0.5] = np.nan
-            writer.write(window, out)
-            feedback.set_progress(0.85 + 0.1 * (i + 1) / total)
+        for window, block in map_windows(lambda window, reader: _masked(recode(window, reader), window,
+                                                                       reader, study),
+                                         grid, feedback, span=(0.85, 0.95)):
+            writer.write(window, block)
     except BaseException:
         writer.abort()
         raise
-    finally:
-        reader.close()
     return writer
+
+
+def _recoder(mapping: dict, spec: SourceSpec, codes, method: str):
+    """Return ``f(window, reader)`` giving a block's group codes (NaN where no group).
+
+    Integer bands are recoded through a lookup table indexed by the stored
+    codes; other evidence through a sorted search of the class values.
+    """
+    data_type = dense_type(spec) if codes is None else None
+    if data_type is not None:
+        counts = DenseCounts(data_type, spec.nodata)
+        lut = np.full(counts.size, np.nan)
+        for key, group in mapping.items():
+            lut[int(key) - counts.offset] = group
+        offset = counts.offset
+        return lambda window, reader: lut[reader.read_raw(spec, window).astype(np.int64) - offset
+                                          if offset else reader.read_raw(spec, window)]
+    keys = np.array(sorted(mapping))
+    groups = np.array([mapping[k] for k in keys])
+
+    def recode(window, reader):
+        block = reader.read(spec, window)
+        if codes is not None:
+            block = wofe.code_by_breaks(block, codes, method)
+        index = np.clip(np.searchsorted(keys, block), 0, keys.size - 1)
+        return np.where(keys[index] == block, groups[index], np.nan)
+    return recode
+
+
+def _masked(block: np.ndarray, window, reader, study: SourceSpec | None) -> np.ndarray:
+    """Set cells outside the study area to NaN."""
+    if study is not None:
+        block = np.where(reader.read(study, window) < 0.5, np.nan, block)
+    return block
 
 
 def _cut_code(threshold: float, codes: list[float] | None) -> float:
@@ -494,43 +524,31 @@ def _layer_summary(layer: wofe.LayerWeights) -> dict:
 
 def _count_conditions(specs, names, grid, points: DepositCells, study, feedback, span):
     """Count cells and deposit cells per unique condition of all layers, block by block."""
+    def work(window, reader):
+        block = wofe.ConditionCounts(names)
+        block.add_block([reader.read(spec, window) for spec in specs], points.block(window),
+                        reader.read(study, window) > 0.5 if study is not None else None)
+        return block
+
     conditions = wofe.ConditionCounts(names)
-    reader = BlockReader()
-    total = count_windows(grid.width, grid.height)
-    try:
-        for i, window in enumerate(iter_windows(grid.width, grid.height)):
-            feedback.check_cancelled()
-            blocks = [reader.read(spec, window) for spec in specs]
-            inside = reader.read(study, window) > 0.5 if study is not None else None
-            conditions.add_block(blocks, points.block(window), inside)
-            feedback.set_progress(span[0] + (span[1] - span[0]) * (i + 1) / total)
-    finally:
-        reader.close()
+    for _, block in map_windows(work, grid, feedback, span=span):
+        conditions = conditions.merge(block)
     return conditions
 
 
 def _write_posterior(specs, layers, prior, grid, study, writers, s_p_rule, feedback, span
                      ) -> tuple[float, float]:
     """Stream P and s(P) into the two writers (outside the study area nodata); return their maxima."""
+    def work(window, reader):
+        result = wofe.posterior_block([reader.read(spec, window) for spec in specs], layers, prior,
+                                      s_p_rule)
+        return (_masked(result.probability, window, reader, study),
+                _masked(result.s_probability, window, reader, study))
+
     highest = [0.0, 0.0]
-    reader = BlockReader()
-    total = count_windows(grid.width, grid.height)
-    try:
-        for i, window in enumerate(iter_windows(grid.width, grid.height)):
-            feedback.check_cancelled()
-            blocks = [reader.read(spec, window) for spec in specs]
-            result = wofe.posterior_block(blocks, layers, prior, s_p_rule)
-            probability, spread = result.probability, result.s_probability
-            if study is not None:
-                outside = reader.read(study, window) < 0.5
-                probability = np.where(outside, np.nan, probability)
-                spread = np.where(outside, np.nan, spread)
-            writers[0].write(window, probability)
-            writers[1].write(window, spread)
-            for k, values in enumerate((probability, spread)):
-                if np.isfinite(values).any():
-                    highest[k] = max(highest[k], float(np.nanmax(values)))
-            feedback.set_progress(span[0] + (span[1] - span[0]) * (i + 1) / total)
-    finally:
-        reader.close()
+    for window, blocks in map_windows(work, grid, feedback, span=span):
+        for k, (writer, values) in enumerate(zip(writers, blocks)):
+            writer.write(window, values)
+            if np.isfinite(values).any():
+                highest[k] = max(highest[k], float(np.nanmax(values)))
     return highest[0], highest[1]
