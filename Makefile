@@ -7,7 +7,7 @@ PY     := $(VENV)/bin/python
 STAMP  := $(VENV)/.installed
 export QT_QPA_PLATFORM ?= offscreen
 
-.PHONY: setup test lint demo demo-data package bench clean help
+.PHONY: setup test lint demo demo-data package bench clean help screenshot
 
 help:
 	@echo "make test     ruff + the whole test suite, headless"
@@ -38,6 +38,9 @@ package: $(STAMP)
 bench: $(STAMP)
 	$(PY) bench/bench_evaluate.py
 	$(PY) bench/bench_evidence.py
+
+screenshot: $(STAMP)
+	$(PY) scripts/screenshot_dock.py
 
 clean:
 	rm -rf build favour_plugin.zip .pytest_cache .ruff_cache

@@ -368,6 +368,196 @@ class Tree:
             raise TreeFileError(_join_problems("the tree has problems", problems))
         return EvaluationPlan(self)
 
+    # -- edits, for editors that build a model step by step ----------------------
+    #
+    # These change the structure only; a half-finished model (a component with
+    # no criteria yet, a criterion with no layer) is allowed and shows up in
+    # problems(). Each edit names what is wrong when it refuses.
+
+    @classmethod
+    def new(cls, name: str = "", root_name: str = "Favourability") -> Tree:
+        """Return a new model: a root taking the fuzzy AND of the four components, each still empty.
+
+        The components (``COMPONENTS``, named with a capital) take the weighted
+        mean of the criteria added to them.
+        """
+        components = [Node(name=kind.capitalize(), component=kind, operator={"type": "weighted_mean"})
+                      for kind in COMPONENTS]
+        return cls(root=Node(name=root_name, operator={"type": "and"}, children=components), name=name)
+
+    @classmethod
+    def from_draft(cls, doc, base_dir: Path | str | None = None) -> Tree:
+        """Build a tree from its tree-file form without checking schema or problems.
+
+        For a half-finished model an editor stored (in a QGIS project, say):
+        it may still lack layers or memberships. Use :meth:`from_dict` for
+        tree files.
+
+        Raises
+        ------
+        TreeFileError
+            The document is not a tree document at all (no root object, a node
+            without a name, a proxy without a path).
+        """
+        if not isinstance(doc, Mapping) or not isinstance(doc.get("root"), Mapping):
+            raise TreeFileError("a stored tree must be a JSON object with a 'root' object")
+        try:
+            root = Node.from_dict(doc["root"])
+        except (KeyError, TypeError, AttributeError) as exc:
+            raise TreeFileError(f"the stored tree cannot be read: a node or proxy lacks {exc}") from None
+        return cls(root=root, name=doc.get("name", ""), description=doc.get("description", ""),
+                   grid=copy.deepcopy(doc.get("grid")),
+                   base_dir=Path(base_dir) if base_dir is not None else None,
+                   extra={k: copy.deepcopy(v) for k, v in doc.items() if k not in _TREE_KEYS})
+
+    def parent_of(self, path: str) -> Node:
+        """Return the parent of the node at ``path``; KeyError for the root or an unknown path."""
+        parent_path, separator, _ = path.rpartition(PATH_SEPARATOR)
+        if not separator:
+            raise KeyError(f"{path} is the root or not in the tree; it has no parent")
+        parent = self.find(parent_path)
+        if not any(parent_path + PATH_SEPARATOR + child.name == path for child in parent.children):
+            raise KeyError(path)
+        return parent
+
+    def index_of(self, path: str) -> int:
+        """Return the position of the node at ``path`` among its siblings."""
+        parent = self.parent_of(path)
+        name = path.rpartition(PATH_SEPARATOR)[2]
+        return [child.name for child in parent.children].index(name)
+
+    def unique_name(self, parent_path: str, base: str) -> str:
+        """Return ``base``, or ``base 2``, ``base 3``…, whichever no child of ``parent_path`` has."""
+        base = (base or "Criterion").replace(PATH_SEPARATOR.strip(), "-").strip() or "Criterion"
+        taken = {child.name for child in self.find(parent_path).children}
+        name, n = base, 1
+        while name in taken:
+            n += 1
+            name = f"{base} {n}"
+        return name
+
+    def add_child(self, parent_path: str, node: Node, index: int | None = None) -> str:
+        """Insert ``node`` under the node at ``parent_path`` (at the end by default); return its path.
+
+        Raises
+        ------
+        ParameterError
+            The parent is a leaf with a layer, or the name is empty, holds
+            ``>`` or is a sibling's name already.
+        KeyError
+            No node at ``parent_path``.
+        """
+        parent = self.find(parent_path)
+        if parent.proxy is not None or parent.membership is not None:
+            raise ParameterError(f"{parent_path}: a criterion scored from a layer cannot take "
+                                 "criteria under it; add them beside it instead")
+        _check_name(node.name, [child.name for child in parent.children], parent_path)
+        parent.children.insert(len(parent.children) if index is None else index, node)
+        return parent_path + PATH_SEPARATOR + node.name
+
+    def remove(self, path: str) -> Node:
+        """Take the node at ``path`` (and its subtree) out of the tree and return it.
+
+        Raises
+        ------
+        ParameterError
+            ``path`` is the root.
+        KeyError
+            No node at ``path``.
+        """
+        if path == self.root.name:
+            raise ParameterError("the root of the tree cannot be removed")
+        parent = self.parent_of(path)
+        return parent.children.pop(self.index_of(path))
+
+    def rename(self, path: str, name: str) -> str:
+        """Give the node at ``path`` a new name; return its new path.
+
+        Raises
+        ------
+        ParameterError
+            The name is empty, holds ``>`` or is a sibling's name already.
+        """
+        node = self.find(path)
+        if path == self.root.name:
+            _check_name(name, [], "the root")
+            node.name = name
+            return name
+        parent = self.parent_of(path)
+        parent_path = path.rpartition(PATH_SEPARATOR)[0]
+        _check_name(name, [child.name for child in parent.children if child is not node], parent_path)
+        node.name = name
+        return parent_path + PATH_SEPARATOR + name
+
+    def move(self, path: str, parent_path: str, index: int) -> str:
+        """Move the node at ``path`` to position ``index`` under ``parent_path``; return its new path.
+
+        Moving within the same parent reorders the siblings (``index`` counts
+        the siblings without the node moved).
+
+        Raises
+        ------
+        ParameterError
+            Moving the root, moving a node under itself, under a leaf with a
+            layer, or next to a sibling of the same name.
+        """
+        if path == self.root.name:
+            raise ParameterError("the root of the tree cannot be moved")
+        if parent_path == path or parent_path.startswith(path + PATH_SEPARATOR):
+            raise ParameterError(f"{path} cannot be moved under itself")
+        old_parent = self.parent_of(path)
+        new_parent = self.find(parent_path)
+        node = self.find(path)
+        if new_parent is not old_parent:
+            if new_parent.proxy is not None or new_parent.membership is not None:
+                raise ParameterError(f"{parent_path}: a criterion scored from a layer cannot take "
+                                     "criteria under it")
+            _check_name(node.name, [child.name for child in new_parent.children], parent_path)
+        old_parent.children.remove(node)
+        new_parent.children.insert(max(0, min(index, len(new_parent.children))), node)
+        return parent_path + PATH_SEPARATOR + node.name
+
+    def anchor_paths(self, folder: Path | str) -> None:
+        """Point every layer path at the same file from ``folder``, which becomes ``base_dir``.
+
+        Layers inside ``folder`` (or below it) get paths relative to it, so the
+        folder can move with its data; layers elsewhere get absolute paths.
+        """
+        folder = Path(os.path.abspath(folder))
+        for _, node in self.walk():
+            if node.proxy is not None:
+                node.proxy.path = _anchored(node.proxy.resolve(self.base_dir), folder)
+        if self.grid and "reference" in self.grid:
+            self.grid["reference"] = _anchored(self.resolve(self.grid["reference"]), folder)
+        self.base_dir = folder
+
+    def absolute_paths(self) -> None:
+        """Rewrite every layer path (and the grid reference) as an absolute path."""
+        for _, node in self.walk():
+            if node.proxy is not None:
+                node.proxy.path = str(node.proxy.resolve(self.base_dir))
+        if self.grid and "reference" in self.grid:
+            self.grid["reference"] = str(self.resolve(self.grid["reference"]))
+
+
+def _check_name(name: str, siblings: list[str], parent_path: str) -> None:
+    """Raise ParameterError unless ``name`` is a usable node name among ``siblings``."""
+    if not isinstance(name, str) or not name.strip() or PATH_SEPARATOR.strip() in name:
+        raise ParameterError(f"a node name must be non-empty and must not contain "
+                             f"'{PATH_SEPARATOR.strip()}', got {name!r}")
+    if name in siblings:
+        raise ParameterError(f"{parent_path} already has a criterion named {name!r}; "
+                             "sibling names must differ")
+
+
+def _anchored(path: Path, folder: Path) -> str:
+    """Return ``path`` relative to ``folder`` when it lies inside it, else absolute."""
+    try:
+        inside = os.path.commonpath([path, folder]) == str(folder)
+    except ValueError:  # another drive on Windows
+        inside = False
+    return Path(os.path.relpath(path, folder)).as_posix() if inside else str(path)
+
 
 def _relative(path: Path, base: Path) -> str:
     """Return ``path`` relative to ``base`` (with ``..`` if needed), POSIX separators."""

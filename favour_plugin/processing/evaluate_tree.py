@@ -4,7 +4,6 @@ from __future__ import annotations
 
 from qgis.core import (
     QgsProcessingOutputFile,
-    QgsProcessingOutputFolder,
     QgsProcessingParameterFile,
     QgsProcessingParameterFolderDestination,
     QgsProcessingParameterNumber,
@@ -50,7 +49,6 @@ class EvaluateTreeAlgorithm(FavourAlgorithm):
         cells.setFlags(cells.flags() | QgsProcessingParameterNumber.FlagAdvanced)
         self.addParameter(cells)
         self.addOutput(QgsProcessingOutputFile(self.LINEAGE, self.tr("Lineage record")))
-        self.addOutput(QgsProcessingOutputFolder(self.NODE_FOLDER, self.tr("Component rasters")))
 
     def processAlgorithm(self, parameters, context, feedback):  # noqa: N802 (QGIS API name)
         """Read the parameters, evaluate the tree, return the outputs."""

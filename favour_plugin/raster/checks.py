@@ -15,6 +15,7 @@ from osgeo import gdal
 
 from ..core.errors import FavourError
 from ..core.tree import Problem, Tree
+from .engine import reference_grid
 from .gdalenv import gdal_job
 from .grid import Grid, crs_label
 from .sources import open_raster
@@ -23,26 +24,18 @@ from .vector import read_layer_facts
 
 def _grid_of(tree: Tree) -> tuple[Grid | None, list[Problem]]:
     """Return the tree's grid (or None) and the problems met in finding it."""
-    spec = tree.grid or {}
     root = tree.root.name
+    has_raster = any(node.is_leaf and node.proxy is not None and not node.proxy.is_vector
+                     for _, node in tree.walk())
+    if not tree.grid and not has_raster:
+        return None, [Problem(root, "the tree has no raster proxy to take a grid from; give the tree "
+                                    "a grid", "error")]
     try:
-        if "reference" in spec:
-            path = str(tree.resolve(spec["reference"]))
-            ds = open_raster(path, "grid reference")
-            return Grid.from_dataset(ds, f"grid reference {path}"), []
-        if spec:
-            return Grid.from_spec(spec["crs"], spec["extent"], spec["cell_size"]), []
+        return reference_grid(tree)[0], []
     except FavourError as exc:
-        return None, [Problem(root, f"grid: {exc}", "error")]
-    for path, node in tree.walk():
-        if node.is_leaf and node.proxy is not None and not node.proxy.is_vector:
-            try:
-                ds = open_raster(str(node.proxy.resolve(tree.base_dir)), path)
-                return Grid.from_dataset(ds, f"{path}: the layer"), []
-            except FavourError:
-                return None, []  # reported at the leaf itself
-    return None, [Problem(root, "the tree has no raster proxy to take a grid from; give the tree "
-                                "a grid", "error")]
+        if tree.grid:
+            return None, [Problem(root, f"grid: {exc}", "error")]
+        return None, []  # the first raster proxy's own problem is reported at its leaf
 
 
 def input_problems(tree: Tree) -> list[Problem]:

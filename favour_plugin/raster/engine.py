@@ -49,7 +49,7 @@ class EvaluationResult:
     warnings: list[dict] = field(default_factory=list)
 
 
-def reference_grid(tree: Tree, plan: EvaluationPlan) -> tuple[Grid, dict]:
+def reference_grid(tree: Tree) -> tuple[Grid, dict]:
     """Return the tree's reference grid and a lineage note saying where it came from.
 
     The grid is ``grid.reference`` (a raster), or ``grid.crs`` + ``grid.extent``
@@ -64,12 +64,12 @@ def reference_grid(tree: Tree, plan: EvaluationPlan) -> tuple[Grid, dict]:
         grid = Grid.from_spec(spec["crs"], spec["extent"], spec["cell_size"])
         return grid, {"source": "tree file", "crs": spec["crs"], "extent": spec["extent"],
                       "cell_size": spec["cell_size"]}
-    for leaf in plan.leaves:
-        if not leaf.proxy.is_vector:
-            path = str(leaf.proxy.resolve(tree.base_dir))
-            ds = open_raster(path, leaf.path)
-            return (Grid.from_dataset(ds, f"{leaf.path}: the layer {path}"),
-                    {"source": "first raster proxy", "node": leaf.path, "path": path})
+    for node_path, node in tree.walk():
+        if node.is_leaf and node.proxy is not None and not node.proxy.is_vector:
+            path = str(node.proxy.resolve(tree.base_dir))
+            ds = open_raster(path, node_path)
+            return (Grid.from_dataset(ds, f"{node_path}: the layer {path}"),
+                    {"source": "first raster proxy", "node": node_path, "path": path})
     raise GridError("the tree has no raster proxy to take a grid from; add 'grid' with "
                     "'reference' or 'crs', 'extent' and 'cell_size' to the tree file")
 
@@ -200,7 +200,7 @@ def _evaluate(tree, plan, output, node_folder, feedback, grid, threads, job, tre
     """Body of :func:`evaluate_tree`, run inside the GDAL job settings."""
     created = lin.utc_now()
     if grid is None:
-        grid, grid_note = reference_grid(tree, plan)
+        grid, grid_note = reference_grid(tree)
     else:
         grid_note = {"source": "given by the caller"}
     if max_cells and grid.cells > max_cells:

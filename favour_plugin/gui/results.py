@@ -1,0 +1,87 @@
+"""Finished runs shown in the project: a layer group per run, styled, with the lineage in the metadata.
+
+Runs in the main thread after a :class:`~.run_job.RunJob` succeeded. Layers
+are styled and annotated by the same :class:`~favour_plugin.processing.base.StyleLoader`
+that styles processing outputs. A quick look replaces the previous one.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import os
+import shutil
+
+from qgis.core import QgsProject, QgsRasterLayer
+
+from ..core.lineage import read_lineage
+from ..core.tree import PATH_SEPARATOR
+from ..processing.base import StyleLoader
+from .common import tr
+
+GROUP = "Favour results"
+RUN_PROPERTY = "favour/run"
+QUICK_PROPERTY = "favour/quick_look"
+
+
+def _group(project: QgsProject):
+    root = project.layerTreeRoot()
+    group = root.findGroup(tr(GROUP))
+    return group if group is not None else root.insertGroup(0, tr(GROUP))
+
+
+def _layer(path: str, name: str, folder: str) -> QgsRasterLayer:
+    layer = QgsRasterLayer(path, name, "gdal")
+    if not layer.isValid():
+        raise RuntimeError(tr("QGIS cannot open the result {path}").format(path=path))
+    StyleLoader(path).postProcessLayer(layer, None, None)
+    layer.setCustomProperty(RUN_PROPERTY, folder)
+    return layer
+
+
+def _node_names(lineage: str | None) -> dict[str, str]:
+    """Return component raster file → node name from the run's lineage."""
+    if not lineage or not os.path.exists(lineage):
+        return {}
+    record = read_lineage(lineage)
+    nodes = record.get("outputs", {}).get("nodes", {})
+    return {os.path.abspath(f): path.split(PATH_SEPARATOR)[-1] for path, f in nodes.items()}
+
+
+def add_results(outcome, tree_name: str, project: QgsProject | None = None) -> list[QgsRasterLayer]:
+    """Add a successful run's rasters to the project and return them (favourability first)."""
+    project = project or QgsProject.instance()
+    group = _group(project)
+    if outcome.quick:
+        remove_quick_looks(project)
+        layer = _layer(outcome.output, tr("Quick look: {name}").format(name=tree_name or tr("model")),
+                       outcome.folder)
+        layer.setCustomProperty(QUICK_PROPERTY, True)
+        project.addMapLayer(layer, False)
+        group.insertLayer(0, layer)
+        return [layer]
+    stamp = _dt.datetime.now().strftime("%Y-%m-%d %H:%M:%S")
+    run_group = group.insertGroup(0, f"{tree_name or tr('model')} · {stamp}")
+    layers = [_layer(outcome.output, tr("Favourability"), outcome.folder)]
+    if outcome.node_folder and os.path.isdir(outcome.node_folder):
+        names = _node_names(outcome.lineage)
+        for file in sorted(os.listdir(outcome.node_folder)):
+            if file.lower().endswith(".tif"):
+                path = os.path.abspath(os.path.join(outcome.node_folder, file))
+                layers.append(_layer(path, names.get(path, os.path.splitext(file)[0]), outcome.folder))
+    for i, layer in enumerate(layers):
+        project.addMapLayer(layer, False)
+        node = run_group.addLayer(layer)
+        node.setItemVisibilityChecked(i == 0)
+        node.setExpanded(False)
+    return layers
+
+
+def remove_quick_looks(project: QgsProject | None = None) -> None:
+    """Remove earlier quick-look layers from the project, and their files."""
+    project = project or QgsProject.instance()
+    for layer in list(project.mapLayers().values()):
+        if layer.customProperty(QUICK_PROPERTY):
+            folder = layer.customProperty(RUN_PROPERTY)
+            project.removeMapLayer(layer.id())
+            if folder and os.path.basename(str(folder)).startswith("quick-"):
+                shutil.rmtree(str(folder), ignore_errors=True)
