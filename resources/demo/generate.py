@@ -53,6 +53,7 @@ DISTRICT = "Tarrowin"
 DEFAULT_FOLDER = Path(__file__).resolve().parent / "layers"
 
 # A local transverse Mercator over open ocean, so the district lies nowhere real.
+CRS_NAME = "Tarrowin local grid (transverse Mercator)"
 CRS_PROJ = ("+proj=tmerc +lat_0=-48 +lon_0=-125 +k=1 +x_0=500000 +y_0=1000000 "
             "+datum=WGS84 +units=m +no_defs")
 WIDTH, HEIGHT, CELL = 1200, 900, 25.0
@@ -93,6 +94,7 @@ def _srs() -> osr.SpatialReference:
     """Return the district's spatial reference with x, y axis order."""
     ref = osr.SpatialReference()
     ref.SetFromUserInput(CRS_PROJ)
+    ref.SetProjCS(CRS_NAME)  # a name of its own, so QGIS does not call it "unknown"
     ref.SetAxisMappingStrategy(osr.OAMS_TRADITIONAL_GIS_ORDER)
     return ref
 
