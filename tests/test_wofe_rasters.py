@@ -337,3 +337,15 @@ def test_processing_bad_input_is_a_processing_error(favour_provider, tmp_path):
             "OUTPUT_TABLE": str(tmp_path / "w.csv")})
     assert not (tmp_path / "w.csv").exists()
     assert srs(TEST_CRS).IsProjected()
+
+
+def test_byte_histogram_equals_numpy_bincount():
+    """The paired-byte histogram equals numpy.bincount for odd, even, empty and extreme arrays."""
+    from favour_plugin.raster.evidence import byte_histogram
+
+    rng = np.random.default_rng(2)
+    for shape in [(0, 0), (1, 1), (3, 5), (256, 1024), (7, 333)]:
+        raw = rng.integers(0, 256, shape).astype(np.uint8)
+        np.testing.assert_array_equal(byte_histogram(raw), np.bincount(raw.ravel(), minlength=256))
+    raw = np.full((5, 4), 255, np.uint8)[:, ::2]  # a strided view, values at the top bin
+    np.testing.assert_array_equal(byte_histogram(raw), np.bincount(raw.ravel(), minlength=256))

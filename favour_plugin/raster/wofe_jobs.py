@@ -214,7 +214,7 @@ def evidence_weights(evidence: str, deposits: str, method: str, output_table: st
             table = _label_thresholds(wofe.weights_table(counts, method, unit_area_km2, cell_km2,
                                                          small_count, name, Feedback()), codes)
             wofe.report_table(table, feedback)
-            best = wofe.best_cut(table, level) if method in ("ascending", "descending") else None
+            best = wofe.best_cut(table, level) if ordered else None
             if best is not None:
                 feedback.info(_describe_cut(best, name))
             result = EvidenceResult(table, output_table, "", best, deposits=points.record)
