@@ -235,13 +235,7 @@ def weights_score(x: np.ndarray, codes: np.ndarray, weights: np.ndarray, default
     μ = 0.5, a positive weight more and a negative one less; for a binary
     pattern it equals P(B | D) / (P(B | D) + P(B | not D)).
     """
-    x = np.asarray(x, dtype=np.float64)
-    out = np.full(x.shape, default, dtype=np.float64)
-    index = np.clip(np.searchsorted(codes, x), 0, codes.size - 1)
-    hit = codes[index] == x
-    out[hit] = expit(weights[index[hit]])
-    out[np.isnan(x)] = np.nan
-    return out
+    return categories(x, codes, expit(weights), default)
 
 
 def identity(x: np.ndarray) -> np.ndarray:
@@ -378,56 +372,54 @@ def _parse_piecewise(spec: Mapping) -> Callable:
     return lambda x: piecewise(x, xs_a, mus_a)
 
 
-def _parse_categories(spec: Mapping) -> Callable:
-    scores = spec.get("scores")
-    if not isinstance(scores, Mapping) or not scores:
-        raise ParameterError(
-            "membership 'categories' needs 'scores', a non-empty map of class code to μ")
+def _class_table(spec: Mapping, key: str, kind: str, what: str, value_of) -> tuple[np.ndarray, np.ndarray]:
+    """Parse a {class code: value} map into sorted codes and their values, naming any bad entry.
+
+    ``value_of(value, label)`` checks and converts one value; ``what`` says
+    what the values are, for the message when the map is missing.
+    """
+    table = spec.get(key)
+    if not isinstance(table, Mapping) or not table:
+        raise ParameterError(f"membership '{kind}' needs '{key}', a non-empty map of class code to {what}")
     codes, values = [], []
-    for key, value in scores.items():
+    for code, value in table.items():
         try:
-            code = float(key)
+            codes.append(float(code))
         except (TypeError, ValueError):
-            raise ParameterError(
-                f"membership 'categories': class code {key!r} is not a number") from None
-        codes.append(code)
-        values.append(_unit(value, f"the score of class {key}", "categories"))
+            raise ParameterError(f"membership '{kind}': class code {code!r} is not a number") from None
+        values.append(value_of(value, code))
+    order = np.argsort(codes)
+    codes_a = np.array(codes)[order]
+    if np.any(np.diff(codes_a) == 0):
+        raise ParameterError(f"membership '{kind}': a class code is listed twice")
+    return codes_a, np.array(values)[order]
+
+
+def _parse_categories(spec: Mapping) -> Callable:
+    codes, scores = _class_table(spec, "scores", "categories", "μ",
+                                 lambda value, code: _unit(value, f"the score of class {code}",
+                                                           "categories"))
     if "default" not in spec:
         raise ParameterError(
             "membership 'categories' needs 'default' (μ for classes not listed, or null for nodata)")
     default = spec["default"]
     default = math.nan if default is None else _unit(default, "'default'", "categories")
-    order = np.argsort(codes)
-    codes_a = np.array(codes)[order]
-    if np.any(np.diff(codes_a) == 0):
-        raise ParameterError("membership 'categories': a class code is listed twice")
-    scores_a = np.array(values)[order]
-    return lambda x: categories(x, codes_a, scores_a, default)
+    return lambda x: categories(x, codes, scores, default)
+
+
+def _finite_weight(value, code) -> float:
+    """Return a class's weight of evidence as a float, or raise naming the class."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+        raise ParameterError(
+            f"membership 'weights': the weight of class {code} must be a finite number, got {value!r}")
+    return float(value)
 
 
 def _parse_weights(spec: Mapping) -> Callable:
-    weights = spec.get("weights")
-    if not isinstance(weights, Mapping) or not weights:
-        raise ParameterError(
-            "membership 'weights' needs 'weights', a non-empty map of class code to weight of evidence")
-    codes, values = [], []
-    for key, value in weights.items():
-        try:
-            codes.append(float(key))
-        except (TypeError, ValueError):
-            raise ParameterError(f"membership 'weights': class code {key!r} is not a number") from None
-        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-            raise ParameterError(
-                f"membership 'weights': the weight of class {key} must be a finite number, got {value!r}")
-        values.append(float(value))
+    codes, weights = _class_table(spec, "weights", "weights", "weight of evidence", _finite_weight)
     default = spec.get("default")
     default = math.nan if default is None else _unit(default, "'default'", "weights")
-    order = np.argsort(codes)
-    codes_a = np.array(codes)[order]
-    if np.any(np.diff(codes_a) == 0):
-        raise ParameterError("membership 'weights': a class code is listed twice")
-    weights_a = np.array(values)[order]
-    return lambda x: weights_score(x, codes_a, weights_a, default)
+    return lambda x: weights_score(x, codes, weights, default)
 
 
 _PARSERS: dict[str, Callable[[Mapping], Callable]] = {

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import os
-from contextlib import nullcontext
+from contextlib import contextmanager, nullcontext
 
 from qgis.core import (
     QgsProcessing,
@@ -46,16 +46,54 @@ def advanced(parameter):
     return parameter
 
 
-class EvidenceWeightsAlgorithm(FavourAlgorithm):
+class DepositParameters:
+    """The DEPOSITS and optional STUDY_AREA parameters the weights-of-evidence algorithms share."""
+
+    DEPOSITS = "DEPOSITS"
+    STUDY_AREA = "STUDY_AREA"
+
+    def add_deposit_parameters(self) -> None:
+        """Declare DEPOSITS (points) and STUDY_AREA (polygons, optional)."""
+        self.addParameter(QgsProcessingParameterFeatureSource(
+            self.DEPOSITS, self.tr("Known deposits (points)"), [QgsProcessing.TypeVectorPoint]))
+        self.addParameter(QgsProcessingParameterFeatureSource(
+            self.STUDY_AREA, self.tr("Study area (polygons, optional)"),
+            [QgsProcessing.TypeVectorPolygon], optional=True))
+
+    def prepare_deposits(self, parameters, context) -> None:
+        """Look at both layers in the main thread (``prepareAlgorithm``)."""
+        self._deposits = VectorInput.prepare(self, parameters, self.DEPOSITS, context)
+        self._study = (VectorInput.prepare(self, parameters, self.STUDY_AREA, context)
+                       if parameters.get(self.STUDY_AREA) else None)
+
+    def resolve_deposits(self, parameters, context, feedback, output: str) -> dict:
+        """Return the files to read as keyword arguments of a job, copies named after ``output``."""
+        base = os.path.splitext(os.path.abspath(output))[0]
+        deposits, layer = self._deposits.resolve(self, parameters, context, feedback,
+                                                 base + ".deposits.gpkg")
+        found = {"deposits": deposits, "deposits_layer": layer, "study_area": None,
+                 "study_layer": None}
+        if self._study is not None:
+            found["study_area"], found["study_layer"] = self._study.resolve(
+                self, parameters, context, feedback, base + ".study-area.gpkg")
+        return found
+
+    @contextmanager
+    def deposits_kept_on_success(self):
+        """Keep any feature copies if the job succeeds; bring back earlier ones if it fails."""
+        with self._deposits.kept_on_success(), \
+                (self._study.kept_on_success() if self._study is not None else nullcontext()):
+            yield
+
+
+class EvidenceWeightsAlgorithm(DepositParameters, FavourAlgorithm):
     """Count an evidence raster against known deposits and write its weights table."""
 
     EVIDENCE = "EVIDENCE"
     BAND = "BAND"
-    DEPOSITS = "DEPOSITS"
     METHOD = "METHOD"
     BREAKS = "BREAKS"
     UNIT_AREA = "UNIT_AREA"
-    STUDY_AREA = "STUDY_AREA"
     LEVEL = "LEVEL"
     SMALL_COUNTS = "SMALL_COUNTS"
     GENERALISE = "GENERALISE"
@@ -94,8 +132,6 @@ class EvidenceWeightsAlgorithm(FavourAlgorithm):
         self.addParameter(QgsProcessingParameterBand(
             self.BAND, self.tr("Band"), defaultValue=1, parentLayerParameterName=self.EVIDENCE,
             optional=True))
-        self.addParameter(QgsProcessingParameterFeatureSource(
-            self.DEPOSITS, self.tr("Known deposits (points)"), [QgsProcessing.TypeVectorPoint]))
         self.addParameter(QgsProcessingParameterEnum(
             self.METHOD, self.tr("Kind of evidence"), options=list(wofe.KINDS),
             defaultValue=wofe.KINDS[0], usesStaticStrings=True))
@@ -105,9 +141,7 @@ class EvidenceWeightsAlgorithm(FavourAlgorithm):
         self.addParameter(QgsProcessingParameterNumber(
             self.UNIT_AREA, self.tr("Unit cell (km²)"), QgsProcessingParameterNumber.Double,
             defaultValue=1.0, minValue=1e-9))
-        self.addParameter(QgsProcessingParameterFeatureSource(
-            self.STUDY_AREA, self.tr("Study area (polygons, optional)"),
-            [QgsProcessing.TypeVectorPolygon], optional=True))
+        self.add_deposit_parameters()
         self.addParameter(advanced(QgsProcessingParameterNumber(
             self.LEVEL, self.tr("Studentised contrast needed for significance"),
             QgsProcessingParameterNumber.Double, defaultValue=wofe.DEFAULT_LEVEL, minValue=1e-6)))
@@ -131,9 +165,7 @@ class EvidenceWeightsAlgorithm(FavourAlgorithm):
         """Find the files behind the layers in the main thread."""
         self._evidence = raster_layer_path(
             self.parameterAsRasterLayer(parameters, self.EVIDENCE, context), self.EVIDENCE)
-        self._deposits = VectorInput.prepare(self, parameters, self.DEPOSITS, context)
-        self._study = (VectorInput.prepare(self, parameters, self.STUDY_AREA, context)
-                       if parameters.get(self.STUDY_AREA) else None)
+        self.prepare_deposits(parameters, context)
         return True
 
     def processAlgorithm(self, parameters, context, feedback):  # noqa: N802 (QGIS API name)
@@ -147,19 +179,11 @@ class EvidenceWeightsAlgorithm(FavourAlgorithm):
         mode = self.parameterAsEnumString(parameters, self.GENERALISE, context)
         table = self.parameterAsFileOutput(parameters, self.OUTPUT_TABLE, context)
         generalised = self.parameterAsOutputLayer(parameters, self.OUTPUT_GENERALISED, context) or None
-        base = os.path.splitext(os.path.abspath(table))[0]
-        deposits, deposits_layer = self._deposits.resolve(self, parameters, context, feedback,
-                                                          base + ".deposits.gpkg")
-        study = study_layer = None
-        if self._study is not None:
-            study, study_layer = self._study.resolve(self, parameters, context, feedback,
-                                                     base + ".study-area.gpkg")
-        with self._deposits.kept_on_success(), \
-                (self._study.kept_on_success() if self._study is not None else nullcontext()):
+        inputs = self.resolve_deposits(parameters, context, feedback, table)
+        with self.deposits_kept_on_success():
             result = run_guarded(
-                evidence_weights, self._evidence, deposits, method, table, band=band,
-                deposits_layer=deposits_layer, unit_area_km2=unit, study_area=study,
-                study_layer=study_layer, breaks=breaks, level=level,
+                evidence_weights, self._evidence, method=method, output_table=table, band=band,
+                unit_area_km2=unit, breaks=breaks, level=level, **inputs,
                 small_count=None if small == "none" else small, generalise_mode=mode,
                 output_generalised=generalised, feedback=ProcessingFeedback(feedback))
         for row in result.table.rows:

@@ -2,14 +2,10 @@
 
 from __future__ import annotations
 
-import os
-from contextlib import nullcontext
-
 from qgis.core import (
     QgsProcessing,
     QgsProcessingOutputNumber,
     QgsProcessingParameterEnum,
-    QgsProcessingParameterFeatureSource,
     QgsProcessingParameterFileDestination,
     QgsProcessingParameterMultipleLayers,
     QgsProcessingParameterNumber,
@@ -19,18 +15,16 @@ from qgis.core import (
 from ..core import wofe
 from ..raster.wofe_jobs import posterior
 from .base import FavourAlgorithm, ProcessingFeedback, run_guarded, style_on_load
-from .evidence_weights import advanced
-from .layers import VectorInput, raster_layer_path
+from .evidence_weights import DepositParameters, advanced
+from .layers import raster_layer_path
 
 
-class PosteriorAlgorithm(FavourAlgorithm):
+class PosteriorAlgorithm(DepositParameters, FavourAlgorithm):
     """Combine generalised evidence into the posterior probability per unit cell."""
 
     EVIDENCE = "EVIDENCE"
     TABLES = "TABLES"
-    DEPOSITS = "DEPOSITS"
     UNIT_AREA = "UNIT_AREA"
-    STUDY_AREA = "STUDY_AREA"
     S_P_RULE = "S_P_RULE"
     OUTPUT_PROBABILITY = "OUTPUT_PROBABILITY"
     OUTPUT_STD = "OUTPUT_STD"
@@ -63,14 +57,10 @@ class PosteriorAlgorithm(FavourAlgorithm):
         self.addParameter(QgsProcessingParameterMultipleLayers(
             self.TABLES, self.tr("Weights tables, one per raster (optional)"), QgsProcessing.TypeFile,
             optional=True))
-        self.addParameter(QgsProcessingParameterFeatureSource(
-            self.DEPOSITS, self.tr("Known deposits (points)"), [QgsProcessing.TypeVectorPoint]))
         self.addParameter(QgsProcessingParameterNumber(
             self.UNIT_AREA, self.tr("Unit cell (km²)"), QgsProcessingParameterNumber.Double,
             defaultValue=1.0, minValue=1e-9))
-        self.addParameter(QgsProcessingParameterFeatureSource(
-            self.STUDY_AREA, self.tr("Study area (polygons, optional)"),
-            [QgsProcessing.TypeVectorPolygon], optional=True))
+        self.add_deposit_parameters()
         self.addParameter(advanced(QgsProcessingParameterEnum(
             self.S_P_RULE, self.tr("s(P) from s(logit)"), options=list(wofe.S_P_RULES),
             defaultValue="delta", usesStaticStrings=True)))
@@ -89,9 +79,7 @@ class PosteriorAlgorithm(FavourAlgorithm):
         """Find the files behind the layers in the main thread."""
         self._evidence = [raster_layer_path(layer, self.EVIDENCE) for layer in
                           self.parameterAsLayerList(parameters, self.EVIDENCE, context)]
-        self._deposits = VectorInput.prepare(self, parameters, self.DEPOSITS, context)
-        self._study = (VectorInput.prepare(self, parameters, self.STUDY_AREA, context)
-                       if parameters.get(self.STUDY_AREA) else None)
+        self.prepare_deposits(parameters, context)
         return True
 
     def processAlgorithm(self, parameters, context, feedback):  # noqa: N802 (QGIS API name)
@@ -103,19 +91,12 @@ class PosteriorAlgorithm(FavourAlgorithm):
         probability = self.parameterAsOutputLayer(parameters, self.OUTPUT_PROBABILITY, context)
         spread = self.parameterAsOutputLayer(parameters, self.OUTPUT_STD, context)
         report = self.parameterAsFileOutput(parameters, self.OUTPUT_REPORT, context) or None
-        base = os.path.splitext(os.path.abspath(probability))[0]
-        deposits, deposits_layer = self._deposits.resolve(self, parameters, context, feedback,
-                                                          base + ".deposits.gpkg")
-        study = study_layer = None
-        if self._study is not None:
-            study, study_layer = self._study.resolve(self, parameters, context, feedback,
-                                                     base + ".study-area.gpkg")
-        with self._deposits.kept_on_success(), \
-                (self._study.kept_on_success() if self._study is not None else nullcontext()):
+        inputs = self.resolve_deposits(parameters, context, feedback, probability)
+        with self.deposits_kept_on_success():
             result = run_guarded(
-                posterior, self._evidence, deposits, probability, spread, report, tables=tables,
-                deposits_layer=deposits_layer, unit_area_km2=unit, study_area=study,
-                study_layer=study_layer, s_p_rule=rule, feedback=ProcessingFeedback(feedback))
+                posterior, self._evidence, output_probability=probability, output_std=spread,
+                output_report=report, tables=tables, unit_area_km2=unit, s_p_rule=rule,
+                feedback=ProcessingFeedback(feedback), **inputs)
         overall = result.checks["overall"]
         feedback.pushInfo(f"n = {overall['observed']}, T = {overall['predicted']:.4g}, "
                           f"n/T = {overall['ratio']:.3f}, Agterberg–Cheng p = {overall['p_value']:.3g}")
