@@ -52,6 +52,7 @@ from common import (
     Qgis,
     folder_bytes,
     fresh,
+    housekeeping,
     mb,
     run_child,
     srs,
@@ -493,22 +494,10 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--child", nargs=argparse.REMAINDER, help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
 
-    if args.child:
-        CHILDREN[args.child[0]](*args.child[1:])
-        return 0
-    work = Path(args.workdir).resolve()
-    if args.clean:
-        if work.exists():
-            shutil.rmtree(work)
-            print(f"removed {work}")
-        else:
-            print(f"nothing to remove: {work} does not exist")
-        return 0
-    if args.size < 64:
-        parser.error("--size must be at least 64")
-    if not os.path.exists(QGIS_PROCESS):
-        sys.exit(f"{QGIS_PROCESS} is not installed; stage (b) and (c) need it")
-    return run(work, args.size, not args.no_double, args.profile, args.threads)
+    stop = housekeeping(args, parser, CHILDREN, "stages (b) and (c)")
+    if stop is not None:
+        return stop
+    return run(Path(args.workdir).resolve(), args.size, not args.no_double, args.profile, args.threads)
 
 
 def run(work: Path, size: int, double: bool, profile: bool, threads: int) -> int:

@@ -46,7 +46,21 @@ from pathlib import Path
 
 import common
 import numpy as np
-from common import CELL, ORIGIN, QGIS_PROCESS, ROOT, Field, Measure, Qgis, fresh, mb, run_child, srs, verdict
+from common import (
+    CELL,
+    ORIGIN,
+    QGIS_PROCESS,
+    ROOT,
+    Field,
+    Measure,
+    Qgis,
+    fresh,
+    housekeeping,
+    mb,
+    run_child,
+    srs,
+    verdict,
+)
 from osgeo import gdal, ogr, osr
 from scipy import special
 
@@ -612,22 +626,10 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--child", nargs=argparse.REMAINDER, help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
 
-    if args.child:
-        CHILDREN[args.child[0]](*args.child[1:])
-        return 0
-    work = Path(args.workdir).resolve()
-    if args.clean:
-        if work.exists():
-            shutil.rmtree(work)
-            print(f"removed {work}")
-        else:
-            print(f"nothing to remove: {work} does not exist")
-        return 0
-    if args.size < 64:
-        parser.error("--size must be at least 64")
-    if not os.path.exists(QGIS_PROCESS):
-        sys.exit(f"{QGIS_PROCESS} is not installed; stage (c) needs it")
-    return run(work, args.size, args.profile)
+    stop = housekeeping(args, parser, CHILDREN, "stage (c)")
+    if stop is not None:
+        return stop
+    return run(Path(args.workdir).resolve(), args.size, args.profile)
 
 
 def run(work: Path, size: int, profile: bool) -> int:

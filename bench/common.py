@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import json
 import os
+import shutil
 import subprocess
 import sys
 import time
@@ -207,3 +208,27 @@ def mb(value: float) -> str:
 def verdict(ok: bool) -> str:
     """Return PASS or MISS."""
     return "PASS" if ok else "MISS"
+
+
+def housekeeping(args, parser, children: dict, stages: str) -> int | None:
+    """Do what both scripts do before a run: a child's job, --clean, and the checks of --size.
+
+    Returns an exit status when the script should stop here, None to go on
+    with the run. ``stages`` names the stages that need qgis_process.
+    """
+    if args.child:
+        children[args.child[0]](*args.child[1:])
+        return 0
+    work = Path(args.workdir).resolve()
+    if args.clean:
+        if work.exists():
+            shutil.rmtree(work)
+            print(f"removed {work}")
+        else:
+            print(f"nothing to remove: {work} does not exist")
+        return 0
+    if args.size < 64:
+        parser.error("--size must be at least 64")
+    if not os.path.exists(QGIS_PROCESS):
+        sys.exit(f"{QGIS_PROCESS} is not installed; {stages} need it")
+    return None

@@ -27,7 +27,7 @@ from .blocks import Window
 from .grid import Grid, crs_label
 from .sources import SourceSpec
 from .streaming import map_windows
-from .vector import read_layer_facts
+from .vector import usable_layer
 
 # Band types counted by a dense histogram: their codes span at most 65 536 values.
 _DENSE_TYPES = {gdal.GDT_Byte: (0, 256), gdal.GDT_UInt16: (0, 65536), gdal.GDT_Int16: (-32768, 65536)}
@@ -97,19 +97,11 @@ def deposit_cells(path: str, layer_name: str | None, grid: Grid, feedback: Feedb
         Missing file, no features, no CRS, geometries that are not points,
         or no point on the grid.
     """
-    facts = read_layer_facts(path, layer_name, name)
-    label = f"{os.path.basename(path)}:{facts.name}"
-    if facts.count == 0:
-        raise InputError(f"{name}: the layer {label} has no features; weights of evidence needs "
-                         "known deposits")
-    if facts.srs_wkt is None:
-        raise GridError(f"{name}: the layer {label} has no CRS; assign one first")
+    facts, label, source_srs = usable_layer(path, layer_name, name,
+                                            "; weights of evidence needs known deposits")
     if "point" not in facts.geometry.lower():
         raise InputError(f"{name}: the layer {label} holds {facts.geometry} geometries; deposits must "
                          "be points")
-    source_srs = osr.SpatialReference()
-    source_srs.ImportFromWkt(facts.srs_wkt)
-    source_srs.SetAxisMappingStrategy(osr.OAMS_TRADITIONAL_GIS_ORDER)
     xs, ys = _read_points(path, facts.name)
     reprojected = not bool(source_srs.IsSame(grid.srs))
     if reprojected and xs.size:
@@ -162,12 +154,7 @@ def study_area_source(path: str, layer_name: str | None, grid: Grid, workdir: st
 
     Cells whose centre lies inside a polygon are inside the study area.
     """
-    facts = read_layer_facts(path, layer_name, name)
-    label = f"{os.path.basename(path)}:{facts.name}"
-    if facts.count == 0:
-        raise InputError(f"{name}: the layer {label} has no features")
-    if facts.srs_wkt is None:
-        raise GridError(f"{name}: the layer {label} has no CRS; assign one first")
+    facts, label, srs = usable_layer(path, layer_name, name)
     if not facts.polygons:
         raise InputError(f"{name}: the layer {label} holds {facts.geometry} geometries; a study area "
                          "is a polygon layer")
@@ -179,14 +166,8 @@ def study_area_source(path: str, layer_name: str | None, grid: Grid, workdir: st
     gdal.Rasterize(ds, path, layers=[facts.name], burnValues=[1], allTouched=False)
     ds = None
     record = {"kind": "study area", "path": path, "layer": facts.name, "features": facts.count,
-              "crs": crs_label(_srs(facts.srs_wkt))}
+              "crs": crs_label(srs)}
     return SourceSpec(f"{path}|{facts.name}|study", target, 1, None, 1.0, 0.0, record), record
-
-
-def _srs(wkt: str) -> osr.SpatialReference:
-    ref = osr.SpatialReference()
-    ref.ImportFromWkt(wkt)
-    return ref
 
 
 class DenseCounts:

@@ -92,6 +92,26 @@ def read_layer_facts(path: str, layer_name: str | None, name: str) -> LayerFacts
     return facts
 
 
+def usable_layer(path: str, layer_name: str | None, name: str, empty_hint: str = ""
+                 ) -> tuple[LayerFacts, str, osr.SpatialReference]:
+    """Read a vector layer's facts and refuse one with no features or no CRS.
+
+    Returns the facts, a label for messages (``file:layer``) and the layer's
+    spatial reference (x, y axis order). ``empty_hint`` ends the message for
+    a layer without features.
+    """
+    facts = read_layer_facts(path, layer_name, name)
+    label = f"{os.path.basename(path)}:{facts.name}"
+    if facts.count == 0:
+        raise InputError(f"{name}: the vector layer {label} has no features{empty_hint}")
+    if facts.srs_wkt is None:
+        raise GridError(f"{name}: the vector layer {label} has no CRS; assign one first")
+    srs = osr.SpatialReference()
+    srs.ImportFromWkt(facts.srs_wkt)
+    srs.SetAxisMappingStrategy(osr.OAMS_TRADITIONAL_GIS_ORDER)
+    return facts, label, srs
+
+
 def _progress_callback(feedback: Feedback, start: float, end: float):
     """Return a GDAL progress callback that reports into ``feedback`` and stops on cancel."""
     def callback(fraction, message, data):
@@ -141,15 +161,7 @@ def vector_source(path: str, layer_name: str | None, measure: str, field_name: s
         Missing file, unreadable layer, no features, no CRS, no feature on the
         grid, a non-numeric field, or a cancel.
     """
-    facts = read_layer_facts(path, layer_name, name)
-    layer_label = f"{os.path.basename(path)}:{facts.name}"
-    if facts.count == 0:
-        raise InputError(f"{name}: the vector layer {layer_label} has no features")
-    if facts.srs_wkt is None:
-        raise GridError(f"{name}: the vector layer {layer_label} has no CRS; assign one first")
-    srs = osr.SpatialReference()
-    srs.ImportFromWkt(facts.srs_wkt)
-    srs.SetAxisMappingStrategy(osr.OAMS_TRADITIONAL_GIS_ORDER)
+    facts, layer_label, srs = usable_layer(path, layer_name, name)
     _check_features_on_grid(facts.extent, srs, grid, name, layer_label)
     record = {"kind": "vector", "path": path, "layer": facts.name, "measure": measure,
               "features": facts.count, "crs": crs_label(srs), "geometry": facts.geometry,

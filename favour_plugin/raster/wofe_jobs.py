@@ -116,15 +116,10 @@ def _auto_breaks(path: str, band: int, feedback: Feedback) -> list[float]:
     return breaks
 
 
-def _is_integer_band(path: str, band: int) -> bool:
-    """Return True when a band stores whole-number codes (an integer data type, no scaling)."""
-    ds = open_raster(path, "evidence")
-    rb = ds.GetRasterBand(band)
-    integer = gdal.GetDataTypeName(rb.DataType).startswith(("Byte", "Int", "UInt")) \
-        and (rb.GetScale() or 1.0) == 1.0 and not (rb.GetOffset() or 0.0)
-    rb = None
-    ds = None
-    return integer
+def _integer_codes(spec: SourceSpec) -> bool:
+    """Return True when the evidence band stores whole-number codes (an integer type, unscaled)."""
+    return spec.record["data_type"].startswith(("Byte", "Int", "UInt")) \
+        and "scale_offset" not in spec.record
 
 
 def evidence_weights(evidence: str, deposits: str, method: str, output_table: str, band: int = 1,
@@ -203,7 +198,7 @@ def evidence_weights(evidence: str, deposits: str, method: str, output_table: st
             ordered = method in ("ascending", "descending")
             if breaks is not None and not ordered:
                 raise ParameterError(f"breaks apply to ascending or descending evidence, not {method}")
-            if ordered and breaks is None and not _is_integer_band(evidence, band):
+            if ordered and breaks is None and not _integer_codes(spec):
                 breaks = _auto_breaks(evidence, band, feedback)
             if breaks is not None:
                 codes = [float(b) for b in breaks]
