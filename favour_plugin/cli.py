@@ -5,14 +5,17 @@
 
 Both call the same functions as the processing algorithms. Exit status: 0 on
 success (and, for ``reproduce``, identical cells), 1 when ``reproduce`` finds
-differences, 2 on an error, 130 when interrupted. Nothing is left under an
-output's final name after an error or an interrupt.
+differences, 2 on an error, 130 when interrupted (Ctrl-C or SIGTERM). Nothing
+is left under an output's final name after an error or an interrupt, and an
+earlier file under that name is as it was.
 """
 
 from __future__ import annotations
 
 import argparse
+import signal
 import sys
+import threading
 
 from .about import VERSION
 from .core.errors import FavourError
@@ -76,9 +79,22 @@ def _parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _interrupt_on_terminate() -> None:
+    """Turn a termination request (SIGTERM) into the same clean stop as Ctrl-C.
+
+    Without this the process would die at once, leaving temporary files and
+    locks beside the outputs; with it, the job's clean-up runs first.
+    """
+    def stop(signum, frame):
+        raise KeyboardInterrupt
+    if threading.current_thread() is threading.main_thread():
+        signal.signal(signal.SIGTERM, stop)
+
+
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; return the exit status."""
     args = _parser().parse_args(argv)
+    _interrupt_on_terminate()
     feedback = ConsoleFeedback(args.verbose, args.quiet)
     # Imported here so --help and --version work even where GDAL is missing.
     from .raster.engine import evaluate_tree_file, reproduce
@@ -98,5 +114,6 @@ def main(argv: list[str] | None = None) -> int:
         print(f"error: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
-        print("interrupted; nothing was written under the output's name", file=sys.stderr)
+        print("interrupted; nothing was written under the output's name and earlier outputs "
+              "are as they were", file=sys.stderr)
         return 130

@@ -10,12 +10,14 @@ post-processor kept alive in ``_POST_PROCESSORS`` until QGIS has used it.
 from __future__ import annotations
 
 import os
+import tempfile
 
 from qgis.core import (
     QgsProcessingAlgorithm,
     QgsProcessingException,
     QgsProcessingFeedback,
     QgsProcessingLayerPostProcessorInterface,
+    QgsProcessingUtils,
 )
 from qgis.PyQt.QtCore import QCoreApplication
 
@@ -57,6 +59,31 @@ class ProcessingFeedback(Feedback):
         return self.feedback.isCanceled()
 
 
+def temporary_folders() -> list[str]:
+    """Return the folders whose files vanish: QGIS's processing folder and the system's temporary one."""
+    folders = [QgsProcessingUtils.tempFolder(), tempfile.gettempdir()]
+    return [os.path.realpath(folder) for folder in folders if folder]
+
+
+def in_temporary_folder(path: str) -> bool:
+    """Return True if ``path`` lies in a folder that QGIS or the system empties."""
+    real = os.path.realpath(path)
+    return any(os.path.commonpath([real, folder]) == folder for folder in temporary_folders())
+
+
+def note_temporary(feedback: QgsProcessingFeedback, *paths: str | None) -> None:
+    """Warn, before the work, about each output that would land in a temporary folder."""
+    for path in paths:
+        if path and in_temporary_folder(path):
+            message = (f"{path} is in a temporary folder, which is emptied when QGIS closes; "
+                       "to keep the result and its lineage, choose a file in a folder of your own")
+            push = getattr(feedback, "pushWarning", None)  # QGIS >= 3.20
+            if push is not None:
+                push(message)
+            else:
+                feedback.reportError(message, False)
+
+
 def run_guarded(function, *args, **kwargs):
     """Call ``function``; re-raise Favour's errors as ``QgsProcessingException``."""
     try:
@@ -84,12 +111,19 @@ class StyleLoader(QgsProcessingLayerPostProcessorInterface):
                 layer.loadNamedStyle(qml)
                 layer.triggerRepaint()
             if os.path.exists(lineage_path(self.path)):
-                record = read_lineage(self.path)
+                try:
+                    record = read_lineage(self.path)
+                    tool = record.get("tool") or {}
+                    history = (f"{tool.get('name', 'Favour')} {tool.get('version', '')}, "
+                               f"{record.get('job', '')}, {record.get('created', '')}; "
+                               f"lineage: {lineage_path(self.path)}")
+                    tree = record.get("tree")
+                    name = tree.get("name", "") if isinstance(tree, dict) else ""
+                except (FavourError, AttributeError, TypeError) as exc:
+                    history, name = f"lineage {lineage_path(self.path)} cannot be read: {exc}", ""
                 metadata = layer.metadata()
-                metadata.addHistoryItem(
-                    f"{record['tool']['name']} {record['tool']['version']}, {record['job']}, "
-                    f"{record['created']}; lineage: {lineage_path(self.path)}")
-                metadata.setAbstract(f"{record['tree'].get('name', '')}\n\n{CAUTION}".strip())
+                metadata.addHistoryItem(history)
+                metadata.setAbstract(f"{name}\n\n{CAUTION}".strip())
                 layer.setMetadata(metadata)
         finally:
             _POST_PROCESSORS.discard(self)

@@ -25,7 +25,7 @@ from qgis.core import (
 from ..core.overlay import NODATA_RULES, OPERATOR_TYPES
 from ..core.tree import FORMAT, VERSION, Tree
 from ..raster.engine import evaluate_tree
-from .base import FavourAlgorithm, ProcessingFeedback, run_guarded, style_on_load
+from .base import FavourAlgorithm, ProcessingFeedback, note_temporary, run_guarded, style_on_load
 from .layers import raster_layer_path
 from .membership import node_name
 
@@ -128,6 +128,7 @@ class CombineAlgorithm(FavourAlgorithm):
         gamma = self.parameterAsDouble(parameters, self.GAMMA, context)
         weights_text = self.parameterAsString(parameters, self.WEIGHTS, context).strip()
         output = self.parameterAsOutputLayer(parameters, self.OUTPUT, context)
+        note_temporary(feedback, output)
         if kind not in OPERATOR_TYPES:
             raise QgsProcessingException(
                 f"{self.OPERATOR}: {kind!r} is not an operator; use one of {', '.join(OPERATOR_TYPES)}")

@@ -21,7 +21,7 @@ from qgis.core import (
 )
 
 from ..raster.engine import evaluate_tree
-from .base import FavourAlgorithm, ProcessingFeedback, run_guarded, style_on_load
+from .base import FavourAlgorithm, ProcessingFeedback, note_temporary, run_guarded, style_on_load
 from .layers import VectorInput, features_copy_path, raster_layer_path
 from .membership import MembershipParameters, node_name, one_leaf_tree
 
@@ -67,6 +67,7 @@ class DistanceMembershipAlgorithm(MembershipParameters, FavourAlgorithm):
         """Read the parameters, measure and score the distance, return the outputs."""
         spec = self.membership_spec(parameters, context)
         output = os.path.abspath(self.parameterAsOutputLayer(parameters, self.OUTPUT, context))
+        note_temporary(feedback, output)
         path, layer_name = self._features.resolve(self, parameters, context, feedback,
                                                   features_copy_path(output))
         proxy = {"path": path, "measure": "distance"}

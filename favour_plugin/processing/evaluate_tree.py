@@ -11,7 +11,7 @@ from qgis.core import (
 )
 
 from ..raster.engine import evaluate_tree_file
-from .base import FavourAlgorithm, ProcessingFeedback, run_guarded, style_on_load
+from .base import FavourAlgorithm, ProcessingFeedback, note_temporary, run_guarded, style_on_load
 
 
 class EvaluateTreeAlgorithm(FavourAlgorithm):
@@ -55,6 +55,7 @@ class EvaluateTreeAlgorithm(FavourAlgorithm):
         tree_file = self.parameterAsFile(parameters, self.TREE, context)
         output = self.parameterAsOutputLayer(parameters, self.OUTPUT, context)
         node_folder = self.parameterAsString(parameters, self.NODE_FOLDER, context) or None
+        note_temporary(feedback, output, node_folder)
         max_cells = self.parameterAsInt(parameters, self.MAX_CELLS, context) or None
         result = run_guarded(evaluate_tree_file, tree_file, output, node_folder,
                              ProcessingFeedback(feedback), max_cells=max_cells)

@@ -22,7 +22,7 @@ from qgis.core import (
 
 from ..core import wofe
 from ..raster.wofe_jobs import evidence_weights
-from .base import FavourAlgorithm, ProcessingFeedback, run_guarded, style_on_load
+from .base import FavourAlgorithm, ProcessingFeedback, note_temporary, run_guarded, style_on_load
 from .layers import VectorInput, raster_layer_path
 
 SMALL_COUNTS = ("none", "haldane")
@@ -179,6 +179,7 @@ class EvidenceWeightsAlgorithm(DepositParameters, FavourAlgorithm):
         mode = self.parameterAsEnumString(parameters, self.GENERALISE, context)
         table = self.parameterAsFileOutput(parameters, self.OUTPUT_TABLE, context)
         generalised = self.parameterAsOutputLayer(parameters, self.OUTPUT_GENERALISED, context) or None
+        note_temporary(feedback, table, generalised)
         inputs = self.resolve_deposits(parameters, context, feedback, table)
         with self.deposits_kept_on_success():
             result = run_guarded(

@@ -28,7 +28,7 @@ from ..core.errors import ParameterError
 from ..core.membership import parse_membership
 from ..core.tree import FORMAT, PATH_SEPARATOR, VERSION, Tree
 from ..raster.engine import evaluate_tree
-from .base import FavourAlgorithm, ProcessingFeedback, run_guarded, style_on_load
+from .base import FavourAlgorithm, ProcessingFeedback, note_temporary, run_guarded, style_on_load
 from .layers import raster_layer_path
 
 #: The membership functions an algorithm offers (``identity`` is for μ layers, see favour:combine).
@@ -305,6 +305,7 @@ class MembershipAlgorithm(MembershipParameters, FavourAlgorithm):
         band = self.parameterAsInt(parameters, self.BAND, context) or 1
         spec = self.membership_spec(parameters, context)
         output = self.parameterAsOutputLayer(parameters, self.OUTPUT, context)
+        note_temporary(feedback, output)
         leaf = {"name": self._label, "proxy": {"path": self._path, "band": band},
                 "membership": spec}
         tree = one_leaf_tree(f"Membership of {self._label}", "Membership", leaf)

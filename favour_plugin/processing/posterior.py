@@ -14,7 +14,7 @@ from qgis.core import (
 
 from ..core import wofe
 from ..raster.wofe_jobs import posterior
-from .base import FavourAlgorithm, ProcessingFeedback, run_guarded, style_on_load
+from .base import FavourAlgorithm, ProcessingFeedback, note_temporary, run_guarded, style_on_load
 from .evidence_weights import DepositParameters, advanced
 from .layers import raster_layer_path
 
@@ -91,6 +91,7 @@ class PosteriorAlgorithm(DepositParameters, FavourAlgorithm):
         probability = self.parameterAsOutputLayer(parameters, self.OUTPUT_PROBABILITY, context)
         spread = self.parameterAsOutputLayer(parameters, self.OUTPUT_STD, context)
         report = self.parameterAsFileOutput(parameters, self.OUTPUT_REPORT, context) or None
+        note_temporary(feedback, probability, spread, report)
         inputs = self.resolve_deposits(parameters, context, feedback, probability)
         with self.deposits_kept_on_success():
             result = run_guarded(

@@ -25,17 +25,25 @@ from osgeo import gdal
 
 from .. import about
 from ..core import lineage as lin
-from ..core.errors import GridError, GridMismatchError, LineageError, MissingInputError, NodataWarning
+from ..core.errors import (
+    GridError,
+    GridMismatchError,
+    InputError,
+    LineageError,
+    MissingInputError,
+    NodataWarning,
+)
 from ..core.feedback import Feedback, ScaledFeedback
 from ..core.tree import PATH_SEPARATOR, EvaluationPlan, Tree
 from .blocks import BLOCK_COLS, BLOCK_ROWS, count_windows, iter_windows
 from .gdalenv import gdal_job, set_stream_cache
 from .grid import Grid
+from .outputs import OutputJob, check_apart, stage_lineage
 from .sources import BlockReader, SourceSpec, cache_need, open_raster, raster_source
 from .streaming import DEFAULT_THREADS, map_windows
-from .style import write_style
+from .style import membership_style, style_path
 from .vector import vector_source
-from .writer import RasterWriter, check_folder, check_writable
+from .writer import RasterWriter, check_raster_name
 
 
 @dataclass
@@ -170,33 +178,75 @@ def evaluate_tree(tree: Tree, output: str, node_folder: str | None = None,
     Raises
     ------
     FavourError
-        A tree problem, a missing or unusable input, an output that cannot be
-        written, or a cancel. Nothing is left under the final names.
+        A tree problem, a missing or unusable input, an output that is one of
+        the inputs or cannot be written, another run writing the same output,
+        or a cancel. Nothing is left under the final names and earlier
+        outputs are as they were.
     """
     feedback = feedback or Feedback()
     threads = threads or DEFAULT_THREADS
     plan = tree.compile()
     output = os.path.abspath(output)
-    check_writable(output)
-    if node_folder:
-        node_folder = os.path.abspath(node_folder)
-        check_folder(node_folder)
-    workdir = tempfile.mkdtemp(prefix=".favour-work-", dir=os.path.dirname(output))
-    writers: dict[str, RasterWriter] = {}
-    try:
+    check_raster_name(output)
+    node_folder = os.path.abspath(node_folder) if node_folder else None
+    node_outputs = _node_outputs(plan, node_folder)
+    with gdal_job():
+        check_apart(_planned_outputs(output, node_outputs), job_inputs(tree, plan, tree_file, grid))
+    with OutputJob([output, *node_outputs.values()], [node_folder] if node_folder else []) as run:
         with gdal_job():
-            return _evaluate(tree, plan, output, node_folder, feedback, grid, threads, job,
-                             tree_file, workdir, writers, max_cells)
-    except BaseException:
-        for writer in writers.values():
-            writer.abort()
-        raise
-    finally:
-        shutil.rmtree(workdir, ignore_errors=True)
+            return _evaluate(tree, plan, output, node_outputs, feedback, grid, threads, job,
+                             tree_file, run.workdir, run.outputs, max_cells)
 
 
-def _evaluate(tree, plan, output, node_folder, feedback, grid, threads, job, tree_file,
-              workdir, writers, max_cells) -> EvaluationResult:
+def _node_outputs(plan: EvaluationPlan, node_folder: str | None) -> dict[str, str]:
+    """Return node path → raster file for the nodes written to ``node_folder``, names made distinct."""
+    if not node_folder:
+        return {}
+    files: dict[str, str] = {}
+    taken: set[str] = set()
+    for path in plan.saved:
+        stem = node_file_name(path)[:-len(".tif")]
+        name, n = stem, 1
+        while name.lower() in taken:
+            n += 1
+            name = f"{stem}-{n}"
+        taken.add(name.lower())
+        files[path] = os.path.join(node_folder, name + ".tif")
+    return files
+
+
+def _planned_outputs(output: str, node_outputs: dict[str, str]) -> list[tuple[str, str]]:
+    """Return (label, path) of every file an evaluation writes, sidecars included."""
+    planned = [("the favourability", output), ("its lineage", str(lin.lineage_path(output))),
+               ("its style", style_path(output))]
+    for node, path in node_outputs.items():
+        planned += [(f"the raster of {node}", path), (f"the style of {node}", style_path(path))]
+    return planned
+
+
+def job_inputs(tree: Tree, plan: EvaluationPlan, tree_file: str | None = None,
+               grid: Grid | None = None) -> list[tuple[str, str]]:
+    """Return (label, path) of every file an evaluation reads: tree file, grid reference, proxies.
+
+    A proxy stands for every file GDAL opens for it (a shapefile's .shp,
+    .shx, .dbf and .prj, say). Files that do not exist are left out: they
+    fail later with a message of their own.
+    """
+    found = []
+    if tree_file:
+        found.append(("the tree file", os.path.abspath(tree_file)))
+    spec = tree.grid or {}
+    if grid is None and "reference" in spec:
+        found.append(("the grid reference", str(tree.resolve(spec["reference"]))))
+    for leaf in plan.leaves:
+        path = str(leaf.proxy.resolve(tree.base_dir))
+        for f in input_files(path, leaf.proxy.is_vector) or [path]:
+            found.append((f"the layer of {leaf.path}", f))
+    return found
+
+
+def _evaluate(tree, plan, output, node_outputs, feedback, grid, threads, job, tree_file,
+              workdir, outputs, max_cells) -> EvaluationResult:
     """Body of :func:`evaluate_tree`, run inside the GDAL job settings."""
     created = lin.utc_now()
     if grid is None:
@@ -227,12 +277,9 @@ def _evaluate(tree, plan, output, node_folder, feedback, grid, threads, job, tre
     hasher = _Hasher(list(dict.fromkeys(files)))
     hasher.start()
 
-    saved = list(plan.saved) if node_folder else []
-    writers[plan.root_path] = RasterWriter(output, grid, plan.root_path)
-    node_outputs = {}
-    for path in saved:
-        node_outputs[path] = os.path.join(node_folder, node_file_name(path))
-        writers[path] = RasterWriter(node_outputs[path], grid, path)
+    writers = {plan.root_path: RasterWriter(output, grid, plan.root_path, outputs=outputs)}
+    for path, file in node_outputs.items():
+        writers[path] = RasterWriter(file, grid, path, outputs=outputs)
 
     stats = _stream(plan, sources, grid, writers, feedback, threads, (0.15, 0.97))
     hasher.join()
@@ -266,7 +313,7 @@ def _evaluate(tree, plan, output, node_folder, feedback, grid, threads, job, tre
                        "arithmetic": "float64 within each block"},
         "nodata_policy": {step.path: step.operator.nodata for step in plan.steps},
         "statistics": stats,
-        "outputs": {"favourability": output, "nodes": node_outputs},
+        "outputs": {"favourability": output, "nodes": dict(node_outputs)},
         "lineage_file": os.path.basename(str(lin.lineage_path(output))),
         "warnings": list(feedback.warnings),
         "seed": None,
@@ -276,10 +323,13 @@ def _evaluate(tree, plan, output, node_folder, feedback, grid, threads, job, tre
         writer.set_metadata(lin.summary_metadata(record, path), stats[path])
     feedback.check_cancelled()
     for writer in writers.values():
-        write_style(writer.commit())
-    lineage_file = lin.write_lineage(record, output)
+        writer.finish()
+        outputs.add_text(style_path(writer.path), membership_style())
+    lineage_file = stage_lineage(outputs, record, output)
+    feedback.check_cancelled()
+    outputs.commit()
     feedback.set_progress(1.0)
-    return EvaluationResult(output, node_outputs, str(lineage_file), record, list(feedback.warnings))
+    return EvaluationResult(output, dict(node_outputs), lineage_file, record, list(feedback.warnings))
 
 
 def _stream(plan: EvaluationPlan, sources: dict[str, SourceSpec], grid: Grid,
@@ -298,7 +348,10 @@ def _stream(plan: EvaluationPlan, sources: dict[str, SourceSpec], grid: Grid,
         for leaf in plan.leaves:
             spec = sources[leaf.path]
             if spec.key not in by_key:
-                by_key[spec.key] = reader.read(spec, window)
+                try:
+                    by_key[spec.key] = reader.read(spec, window)
+                except InputError as exc:
+                    raise InputError(f"{leaf.path}: {exc}") from None
             values[leaf.path] = by_key[spec.key]
         results = plan.evaluate_block(values, keep)
         block_stats = {path: lin.NodeStatistics.of_block(array, histogram=path in writers)

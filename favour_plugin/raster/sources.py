@@ -200,6 +200,14 @@ def _same_lattice(src: Grid, grid: Grid) -> bool:
     return abs(dx - round(dx)) < 1e-6 and abs(dy - round(dy)) < 1e-6
 
 
+def _read_error(spec: SourceSpec, window: Window, exc: RuntimeError) -> InputError:
+    """Return the error for a block GDAL could not read, naming the file and the rows."""
+    path = spec.record.get("path", spec.target) if spec.record else spec.target
+    return InputError(f"cannot read {path} at rows {window.row_off}–{window.row_off + window.height - 1}, "
+                      f"columns {window.col_off}–{window.col_off + window.width - 1}: {exc}; "
+                      "the file may be damaged or truncated")
+
+
 class BlockReader:
     """Reads proxies block by block; one per thread, since GDAL handles are not shared.
 
@@ -218,13 +226,26 @@ class BlockReader:
         return handle[1]
 
     def read(self, spec: SourceSpec, window: Window) -> np.ndarray:
-        """Return the proxy's values on ``window`` as float64 with NaN for nodata."""
-        return read_window(self._band(spec), window, spec.nodata, spec.scale, spec.offset)
+        """Return the proxy's values on ``window`` as float64 with NaN for nodata.
+
+        Raises
+        ------
+        InputError
+            GDAL could not read the block (a damaged or truncated file, a
+            failing disk); the message names the file and the rows.
+        """
+        try:
+            return read_window(self._band(spec), window, spec.nodata, spec.scale, spec.offset)
+        except RuntimeError as exc:
+            raise _read_error(spec, window, exc) from None
 
     def read_raw(self, spec: SourceSpec, window: Window) -> np.ndarray:
         """Return the band's stored values on ``window`` (native type, nodata not masked)."""
-        return self._band(spec).ReadAsArray(window.col_off, window.row_off, window.width,
-                                            window.height)
+        try:
+            return self._band(spec).ReadAsArray(window.col_off, window.row_off, window.width,
+                                                window.height)
+        except RuntimeError as exc:
+            raise _read_error(spec, window, exc) from None
 
     def close(self) -> None:
         """Close every dataset this reader opened (each band before its dataset)."""

@@ -59,13 +59,3 @@ def membership_style(low: float = 0.0, high: float = 1.0, title: str = "μ") -> 
         label = quoteattr(f"{value:.2f}" + (f" {title}" if fraction in (0.0, 1.0) else ""))
         items.append(f'          <item value="{value!r}" color="{colour}" alpha="255" label={label}/>')
     return _TEMPLATE.format(low=repr(low), high=repr(high), items="\n".join(items))
-
-
-def write_style(raster_path: str, low: float = 0.0, high: float = 1.0) -> str:
-    """Write the ramp's QML beside ``raster_path`` and return the style file's path."""
-    path = style_path(raster_path)
-    tmp = path + ".partial"
-    with open(tmp, "w", encoding="utf-8") as handle:
-        handle.write(membership_style(low, high))
-    os.replace(tmp, path)
-    return path

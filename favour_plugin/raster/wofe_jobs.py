@@ -16,8 +16,6 @@ from __future__ import annotations
 
 import os
 import platform
-import shutil
-import tempfile
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -42,35 +40,34 @@ from .evidence import (
 )
 from .gdalenv import gdal_job
 from .grid import Grid
+from .outputs import OutputJob, OutputSet, check_apart, stage_lineage
 from .sources import SourceSpec, open_raster, raster_source
 from .streaming import map_windows
-from .style import write_style
-from .writer import RasterWriter, check_folder, check_writable
+from .style import membership_style, style_path
+from .writer import RasterWriter, check_raster_name
 
 #: Breaks placed at quantiles of a sample when continuous ordered evidence comes without breaks.
 AUTO_BREAKS = 20
 
 
-def _atomic_text(path: str, text: str) -> None:
-    """Write ``text`` to ``path`` through a temporary file and a rename."""
-    tmp = f"{path}.partial"
-    try:
-        with open(tmp, "w", encoding="utf-8", newline="") as handle:
-            handle.write(text)
-        os.replace(tmp, path)
-    except OSError as exc:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise OutputError(f"cannot write {path}: {exc.strerror or exc}") from None
-
-
 def _check_text_output(path: str, suffixes: tuple[str, ...], what: str) -> str:
-    """Check a table or report output name and its folder; return the absolute path."""
+    """Check a table or report output name; return the absolute path."""
     path = os.path.abspath(path)
     if not path.lower().endswith(suffixes):
         raise OutputError(f"the {what} {path} must end in {' or '.join(suffixes)}")
-    check_folder(os.path.dirname(path))
+    if os.path.isdir(path):
+        raise OutputError(f"the {what} {path} is a folder; give a file name")
     return path
+
+
+def _read_files(entries: list[tuple[str, str, bool | None]]) -> list[tuple[str, str]]:
+    """Return (label, file) for every file the inputs stand for (a shapefile's parts, say).
+
+    ``vector`` is True for a vector source, False for a raster, None for a
+    plain file GDAL does not open (a lineage record).
+    """
+    return [(label, f) for label, path, vector in entries
+            for f in ([path] if vector is None else input_files(path, vector) or [path])]
 
 
 def _describe_inputs(entries: list[tuple[str, str, bool]]) -> list[dict]:
@@ -180,73 +177,79 @@ def evidence_weights(evidence: str, deposits: str, method: str, output_table: st
     if generalise_mode not in ("ternary", "binary"):
         raise ParameterError(f"generalisation must be 'ternary' or 'binary', got {generalise_mode!r}")
     output_table = _check_text_output(output_table, (".csv",), "weights table")
+    finals = [output_table]
+    planned = [("the weights table", output_table),
+               ("its lineage", str(lin.lineage_path(output_table)))]
     if output_generalised:
-        check_writable(output_generalised)
+        check_raster_name(output_generalised)
         output_generalised = os.path.abspath(output_generalised)
+        finals.append(output_generalised)
+        planned += [("the generalised evidence", output_generalised),
+                    ("its lineage", str(lin.lineage_path(output_generalised))),
+                    ("its weights table", output_generalised + ".weights.csv"),
+                    ("that table's lineage", str(lin.lineage_path(output_generalised + ".weights.csv")))]
+    read = [("the evidence", evidence, False), ("the deposits", deposits, True)] + \
+        ([("the study area", study_area, True)] if study_area else [])
+    with gdal_job():
+        check_apart(planned, _read_files(read))
     created = lin.utc_now()
     name = os.path.basename(evidence)
-    workdir = tempfile.mkdtemp(prefix=".favour-work-", dir=os.path.dirname(output_table))
-    writer = None
-    try:
-        with gdal_job():
-            grid = Grid.from_dataset(open_raster(evidence, name), f"the evidence {evidence}")
-            cell_km2 = cell_area_km2(grid)
-            spec = raster_source(evidence, band, grid, "nearest", name, feedback, workdir)
-            points = deposit_cells(deposits, deposits_layer, grid, feedback)
-            study = study_area_source(study_area, study_layer, grid, workdir)[0] if study_area else None
-            codes = None
-            ordered = method in ("ascending", "descending")
-            if breaks is not None and not ordered:
-                raise ParameterError(f"breaks apply to ascending or descending evidence, not {method}")
-            if ordered and breaks is None and not _integer_codes(spec):
-                breaks = _auto_breaks(evidence, band, feedback)
-            if breaks is not None:
-                codes = [float(b) for b in breaks]
-                wofe.code_by_breaks(np.zeros(1), codes, method)  # checks the breaks before counting
-            counts = count_evidence(spec, grid, points, feedback, study, codes, method, (0.05, 0.85))
-            # Caveats are reported once the rows carry their thresholds (and the whole-area row
-            # of break codes, which is no threshold, is gone).
-            table = _label_thresholds(wofe.weights_table(counts, method, unit_area_km2, cell_km2,
-                                                         small_count, name, Feedback()), codes)
-            wofe.report_table(table, feedback)
-            best = wofe.best_cut(table, level) if ordered else None
-            if best is not None:
-                feedback.info(_describe_cut(best, name))
-            result = EvidenceResult(table, output_table, "", best, deposits=points.record)
-            if output_generalised:
-                writer = _generalised(result, counts, spec, grid, study, codes, method, level,
-                                      generalise_mode, output_generalised, feedback)
-            feedback.check_cancelled()
-            inputs = _describe_inputs([("evidence", evidence, False), ("deposits", deposits, True)]
-                                      + ([("study area", study_area, True)] if study_area else []))
-            parameters = {"method": method, "band": band, "unit_area_km2": unit_area_km2,
-                          "cell_area_km2": cell_km2, "breaks": codes, "level": level,
-                          "small_count": small_count, "generalise": generalise_mode}
-            record = _record("evidence-weights", grid, inputs, parameters, feedback, created,
-                             deposits=points.record, counts=counts.as_dict(), table=table.as_dict(),
-                             best_cut=None if best is None else best.__dict__,
-                             outputs={"table": output_table, "generalised": output_generalised})
-            if writer is not None:
-                generalised = {**record, "table": result.generalised_table.as_dict(),
-                               "source_table": table.as_dict(),
-                               "lineage_file": os.path.basename(str(lin.lineage_path(output_generalised)))}
-                writer.set_metadata(lin.summary_metadata(generalised, f"{name} generalised"))
-                result.generalised_file = writer.commit()
-                writer = None
-                generalised_table = output_generalised + ".weights.csv"
-                _atomic_text(generalised_table, result.generalised_table.to_csv(level))
-                lin.write_lineage(generalised, generalised_table)
-                lin.write_lineage(generalised, output_generalised)
-            _atomic_text(output_table, table.to_csv(level))
-            result.lineage_file = str(lin.write_lineage(record, output_table))
-            feedback.set_progress(1.0)
-            return result
-    except BaseException:
+    with OutputJob(finals) as run, gdal_job():
+        grid = Grid.from_dataset(open_raster(evidence, name), f"the evidence {evidence}")
+        cell_km2 = cell_area_km2(grid)
+        spec = raster_source(evidence, band, grid, "nearest", name, feedback, run.workdir)
+        points = deposit_cells(deposits, deposits_layer, grid, feedback)
+        study = study_area_source(study_area, study_layer, grid, run.workdir)[0] if study_area else None
+        codes = None
+        ordered = method in ("ascending", "descending")
+        if breaks is not None and not ordered:
+            raise ParameterError(f"breaks apply to ascending or descending evidence, not {method}")
+        if ordered and breaks is None and not _integer_codes(spec):
+            breaks = _auto_breaks(evidence, band, feedback)
+        if breaks is not None:
+            codes = [float(b) for b in breaks]
+            wofe.code_by_breaks(np.zeros(1), codes, method)  # checks the breaks before counting
+        counts = count_evidence(spec, grid, points, feedback, study, codes, method, (0.05, 0.85))
+        # Caveats are reported once the rows carry their thresholds (and the whole-area row
+        # of break codes, which is no threshold, is gone).
+        table = _label_thresholds(wofe.weights_table(counts, method, unit_area_km2, cell_km2,
+                                                     small_count, name, Feedback()), codes)
+        wofe.report_table(table, feedback)
+        best = wofe.best_cut(table, level) if ordered else None
+        if best is not None:
+            feedback.info(_describe_cut(best, name))
+        result = EvidenceResult(table, output_table, "", best, deposits=points.record)
+        writer = None
+        if output_generalised:
+            writer = _generalised(result, counts, spec, grid, study, codes, method, level,
+                                  generalise_mode, output_generalised, feedback, run.outputs)
+        feedback.check_cancelled()
+        inputs = _describe_inputs([(role.removeprefix("the "), path, vector) for role, path, vector in read])
+        parameters = {"method": method, "band": band, "unit_area_km2": unit_area_km2,
+                      "cell_area_km2": cell_km2, "breaks": codes, "level": level,
+                      "small_count": small_count, "generalise": generalise_mode}
+        record = _record("evidence-weights", grid, inputs, parameters, feedback, created,
+                         deposits=points.record, counts=counts.as_dict(), table=table.as_dict(),
+                         best_cut=None if best is None else best.__dict__,
+                         outputs={"table": output_table,
+                                  "generalised": output_generalised if writer is not None else None})
         if writer is not None:
-            writer.abort()
-        raise
-    finally:
-        shutil.rmtree(workdir, ignore_errors=True)
+            generalised = {**record, "table": result.generalised_table.as_dict(),
+                           "source_table": table.as_dict(),
+                           "lineage_file": os.path.basename(str(lin.lineage_path(output_generalised)))}
+            writer.set_metadata(lin.summary_metadata(generalised, f"{name} generalised"))
+            writer.finish()
+            generalised_table = output_generalised + ".weights.csv"
+            run.outputs.add_text(generalised_table, result.generalised_table.to_csv(level))
+            stage_lineage(run.outputs, generalised, generalised_table)
+            stage_lineage(run.outputs, generalised, output_generalised)
+            result.generalised_file = output_generalised
+        run.outputs.add_text(output_table, table.to_csv(level))
+        result.lineage_file = stage_lineage(run.outputs, record, output_table)
+        feedback.check_cancelled()
+        run.outputs.commit()
+        feedback.set_progress(1.0)
+        return result
 
 
 def _label_thresholds(table: wofe.WeightsTable, codes: list[float] | None) -> wofe.WeightsTable:
@@ -279,8 +282,8 @@ def _describe_cut(best: wofe.BestCut, name: str) -> str:
 
 def _generalised(result: EvidenceResult, counts: wofe.ClassCounts, spec: SourceSpec, grid: Grid,
                  study: SourceSpec | None, codes, method: str, level: float, mode: str,
-                 output: str, feedback: Feedback) -> RasterWriter | None:
-    """Stream the generalised evidence into a writer (not yet committed); return the writer."""
+                 output: str, feedback: Feedback, outputs: OutputSet) -> RasterWriter | None:
+    """Stream the generalised evidence into a writer (not yet finished); return the writer."""
     table = result.table
     if method in ("ascending", "descending"):
         best = result.best
@@ -304,16 +307,12 @@ def _generalised(result: EvidenceResult, counts: wofe.ClassCounts, spec: SourceS
     else:
         mapping = {0.0: 0.0, 1.0: 1.0}
         result.generalised_table = table
-    writer = RasterWriter(output, grid, f"{table.name} generalised", classes=True)
+    writer = RasterWriter(output, grid, f"{table.name} generalised", classes=True, outputs=outputs)
     recode = _recoder(mapping, spec, codes, method)
-    try:
-        for window, block in map_windows(lambda window, reader: _masked(recode(window, reader), window,
-                                                                       reader, study),
-                                         grid, feedback, span=(0.85, 0.95)):
-            writer.write(window, block)
-    except BaseException:
-        writer.abort()
-        raise
+    for window, block in map_windows(lambda window, reader: _masked(recode(window, reader), window,
+                                                                   reader, study),
+                                     grid, feedback, span=(0.85, 0.95)):
+        writer.write(window, block)
     return writer
 
 
@@ -431,74 +430,83 @@ def posterior(evidence: list[str], deposits: str, output_probability: str, outpu
         raise ParameterError(f"{len(tables)} weights tables for {len(evidence)} evidence rasters; give "
                              "one per raster, in the same order, or none")
     for path in (output_probability, output_std):
-        check_writable(path)
+        check_raster_name(path)
+    output_probability, output_std = os.path.abspath(output_probability), os.path.abspath(output_std)
+    finals = [output_probability, output_std]
+    planned = [("the posterior probability", output_probability),
+               ("its lineage", str(lin.lineage_path(output_probability))),
+               ("its style", style_path(output_probability)),
+               ("its standard deviation", output_std),
+               ("that raster's lineage", str(lin.lineage_path(output_std))),
+               ("that raster's style", style_path(output_std))]
     if output_report:
         output_report = _check_text_output(output_report, (".html", ".htm"), "report")
-    output_probability, output_std = os.path.abspath(output_probability), os.path.abspath(output_std)
+        finals.append(output_report)
+        planned.append(("the report", output_report))
+    read = [(f"the evidence {path}", path, False) for path in evidence] + \
+        [("the deposits", deposits, True)] + \
+        [(f"the weights table {t}", t, False) for t in tables or ()] + \
+        [(f"the lineage of the weights table {t}", str(lin.lineage_path(t)), None)
+         for t in tables or ()] + \
+        ([("the study area", study_area, True)] if study_area else [])
+    with gdal_job():
+        check_apart(planned, _read_files(read))
     created = lin.utc_now()
     names = _unique_names(evidence)
-    workdir = tempfile.mkdtemp(prefix=".favour-work-", dir=os.path.dirname(output_probability))
-    writers: list[RasterWriter] = []
-    try:
-        with gdal_job():
-            grid = Grid.from_dataset(open_raster(evidence[0], names[0]), f"the evidence {evidence[0]}")
-            cell_km2 = cell_area_km2(grid)
-            specs = [raster_source(path, 1, grid, "nearest", name, feedback, workdir)
-                     for path, name in zip(evidence, names)]
-            points = deposit_cells(deposits, deposits_layer, grid, feedback)
-            study = study_area_source(study_area, study_layer, grid, workdir)[0] if study_area else None
-            conditions = _count_conditions(specs, names, grid, points, study, feedback, (0.0, 0.45))
-            layers = []
-            for j, name in enumerate(names):
-                if tables is not None:
-                    table = read_weights_table(tables[j])
-                else:
-                    counts = conditions.marginal(j)
-                    classes = counts.classes
-                    kind = "binary" if set(classes.tolist()) <= {0.0, 1.0} else "categorical"
-                    table = wofe.weights_table(counts, kind, unit_area_km2, cell_km2, None, name, feedback)
-                layers.append(_layer_from_table(table, name))
-            prior = wofe.study_prior(int(conditions.cells.sum()), int(conditions.deposit_cells.sum()),
-                                     unit_area_km2, cell_km2)
-            checks = wofe.conditional_independence(conditions, layers, unit_area_km2, cell_km2, prior,
-                                                   s_p_rule, feedback=feedback)
-            writers.append(RasterWriter(output_probability, grid, "posterior probability per unit cell"))
-            writers.append(RasterWriter(output_std, grid, "standard deviation of the posterior"))
-            highest = _write_posterior(specs, layers, prior, grid, study, writers, s_p_rule, feedback,
-                                       (0.45, 0.95))
-            feedback.check_cancelled()
-            entries = [("evidence", p, False) for p in evidence] + [("deposits", deposits, True)]
-            entries += [("weights table", t, False) for t in tables or ()]
-            entries += [("study area", study_area, True)] if study_area else []
-            parameters = {"unit_area_km2": unit_area_km2, "cell_area_km2": cell_km2,
-                          "s_p_rule": s_p_rule, "tables_given": tables is not None}
-            summary = {"prior": prior.__dict__, "layers": [_layer_summary(layer) for layer in layers],
-                       "checks": checks, "deposits": points.record}
-            record = _record("posterior", grid, _describe_inputs(entries), parameters, feedback,
-                             created, summary=summary,
-                             outputs={"probability": output_probability, "std": output_std,
-                                      "report": output_report})
-            for writer, role in zip(writers, ("posterior probability", "its standard deviation")):
-                writer.set_metadata(lin.summary_metadata(
-                    {**record, "lineage_file": os.path.basename(str(lin.lineage_path(writer.path)))},
-                    role))
-            for writer, top in zip(list(writers), highest):
-                path = writer.commit()
-                writers.remove(writer)
-                lin.write_lineage(record, path)
-                write_style(path, 0.0, max(top, 1e-12))
-            lineage_file = str(lin.lineage_path(output_probability))
-            if output_report:
-                _atomic_text(output_report, posterior_report_html(record, names))
-            feedback.set_progress(1.0)
-            return PosteriorResult(output_probability, output_std, output_report, lineage_file,
-                                   layers, prior, checks)
-    except BaseException:
-        for writer in writers:
-            writer.abort()
-        raise
-    finally:
-        shutil.rmtree(workdir, ignore_errors=True)
+    with OutputJob(finals) as run, gdal_job():
+        grid = Grid.from_dataset(open_raster(evidence[0], names[0]), f"the evidence {evidence[0]}")
+        cell_km2 = cell_area_km2(grid)
+        specs = [raster_source(path, 1, grid, "nearest", name, feedback, run.workdir)
+                 for path, name in zip(evidence, names)]
+        points = deposit_cells(deposits, deposits_layer, grid, feedback)
+        study = study_area_source(study_area, study_layer, grid, run.workdir)[0] if study_area else None
+        conditions = _count_conditions(specs, names, grid, points, study, feedback, (0.0, 0.45))
+        layers = []
+        for j, name in enumerate(names):
+            if tables is not None:
+                table = read_weights_table(tables[j])
+            else:
+                counts = conditions.marginal(j)
+                classes = counts.classes
+                kind = "binary" if set(classes.tolist()) <= {0.0, 1.0} else "categorical"
+                table = wofe.weights_table(counts, kind, unit_area_km2, cell_km2, None, name, feedback)
+            layers.append(_layer_from_table(table, name))
+        prior = wofe.study_prior(int(conditions.cells.sum()), int(conditions.deposit_cells.sum()),
+                                 unit_area_km2, cell_km2)
+        checks = wofe.conditional_independence(conditions, layers, unit_area_km2, cell_km2, prior,
+                                               s_p_rule, feedback=feedback)
+        writers = [RasterWriter(output_probability, grid, "posterior probability per unit cell",
+                                outputs=run.outputs),
+                   RasterWriter(output_std, grid, "standard deviation of the posterior",
+                                outputs=run.outputs)]
+        highest = _write_posterior(specs, layers, prior, grid, study, writers, s_p_rule, feedback,
+                                   (0.45, 0.95))
+        feedback.check_cancelled()
+        entries = [("evidence", p, False) for p in evidence] + [("deposits", deposits, True)]
+        entries += [("weights table", t, False) for t in tables or ()]
+        entries += [("study area", study_area, True)] if study_area else []
+        parameters = {"unit_area_km2": unit_area_km2, "cell_area_km2": cell_km2,
+                      "s_p_rule": s_p_rule, "tables_given": tables is not None}
+        summary = {"prior": prior.__dict__, "layers": [_layer_summary(layer) for layer in layers],
+                   "checks": checks, "deposits": points.record}
+        record = _record("posterior", grid, _describe_inputs(entries), parameters, feedback,
+                         created, summary=summary,
+                         outputs={"probability": output_probability, "std": output_std,
+                                  "report": output_report})
+        for writer, role, top in zip(writers, ("posterior probability", "its standard deviation"),
+                                     highest):
+            writer.set_metadata(lin.summary_metadata(
+                {**record, "lineage_file": os.path.basename(str(lin.lineage_path(writer.path)))}, role))
+            writer.finish()
+            stage_lineage(run.outputs, record, writer.path)
+            run.outputs.add_text(style_path(writer.path), membership_style(0.0, max(top, 1e-12)))
+        if output_report:
+            run.outputs.add_text(output_report, posterior_report_html(record, names))
+        feedback.check_cancelled()
+        run.outputs.commit()
+        feedback.set_progress(1.0)
+        return PosteriorResult(output_probability, output_std, output_report,
+                               str(lin.lineage_path(output_probability)), layers, prior, checks)
 
 
 def _unique_names(paths: list[str]) -> list[str]:

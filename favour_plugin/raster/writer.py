@@ -1,15 +1,24 @@
-"""Write float rasters block by block to a temporary file and rename it on success.
+"""Write float rasters block by block to a temporary file, put in place only on success.
 
 Output is a tiled (256 x 256) GeoTIFF, DEFLATE with the floating-point
-predictor, BigTIFF when the size calls for it, nodata declared. Nothing
-appears under the final name until :meth:`RasterWriter.commit`; an error or a
-cancel leaves the user's existing file, if any, untouched.
+predictor, BigTIFF when the size calls for it, nodata declared. The cells go
+to a hidden temporary file beside the final name, reserved from an
+:class:`~favour_plugin.raster.outputs.OutputSet`; nothing appears under the
+final name until the set is committed, and an error or a cancel leaves the
+user's existing file, if any, untouched.
+
+GDAL reports a full disk or a failing device late: a block may sit in the
+cache and fail only when flushed, and the file's directory is rewritten
+when it closes. :meth:`RasterWriter.finish` flushes and closes with both
+checked, so a truncated file never reaches its final name.
 """
 
 from __future__ import annotations
 
 import os
-import tempfile
+import shutil
+import sys
+import threading
 
 import numpy as np
 from osgeo import gdal
@@ -17,38 +26,57 @@ from osgeo import gdal
 from ..core.errors import OutputError
 from .blocks import Window
 from .grid import Grid
+from .outputs import OutputSet
 
 NODATA = -9999.0
 CREATION_OPTIONS = ("TILED=YES", "BLOCKXSIZE=256", "BLOCKYSIZE=256", "COMPRESS=DEFLATE",
                     "PREDICTOR=3", "BIGTIFF=IF_SAFER", "NUM_THREADS=ALL_CPUS")
 
+_close_lock = threading.Lock()
 
-def check_writable(path: str) -> None:
-    """Make sure an output can be written at ``path``: a GeoTIFF name in a writable folder.
 
-    Creates missing parent folders.
-
-    Raises
-    ------
-    OutputError
-        Not a ``.tif``/``.tiff`` name, a folder in the way, or a folder that
-        cannot be created or written.
-    """
+def check_raster_name(path: str) -> None:
+    """Refuse an output name that is not a GeoTIFF file name, or that is a folder."""
     if not path.lower().endswith((".tif", ".tiff")):
         raise OutputError(f"output {path} must be a GeoTIFF file name ending in .tif")
     if os.path.isdir(path):
         raise OutputError(f"output {path} is a folder; give a file name ending in .tif")
-    check_folder(os.path.dirname(os.path.abspath(path)))
 
 
-def check_folder(folder: str) -> None:
-    """Create ``folder`` if needed and check a file can be written in it."""
+def _close_dataset(holder: list) -> str:
+    """Close the GDAL dataset held (only) in ``holder``; return the error GDAL raised ('' if none).
+
+    GDAL's Python bindings (before 3.8 there is no ``Close()``) raise a close
+    error from the dataset's destructor, where Python can only print it; the
+    unraisable hook catches it for the duration of the close instead. The
+    caller must hold no other reference, or the close happens later, unseen.
+    """
+    caught: list[str] = []
+    with _close_lock:
+        previous = sys.unraisablehook
+
+        def hook(unraisable):
+            if isinstance(unraisable.exc_value, RuntimeError):
+                caught.append(str(unraisable.exc_value))
+            else:
+                previous(unraisable)
+
+        sys.unraisablehook = hook
+        try:
+            holder.clear()
+        finally:
+            sys.unraisablehook = previous
+    return "; ".join(caught)
+
+
+def _space(path: str) -> str:
+    """Say how much room is left beside ``path``, the usual reason a write fails."""
+    folder = os.path.dirname(path)
     try:
-        os.makedirs(folder, exist_ok=True)
-        with tempfile.NamedTemporaryFile(dir=folder, prefix=".favour-check-"):
-            pass
-    except OSError as exc:
-        raise OutputError(f"cannot write to the folder {folder}: {exc.strerror or exc}") from None
+        free = shutil.disk_usage(folder).free
+    except OSError:
+        return "is the disk full?"
+    return f"the disk holding {folder} has {free / 2**20:.1f} MiB free"
 
 
 class RasterWriter:
@@ -65,36 +93,53 @@ class RasterWriter:
     classes : bool
         Write whole-number class codes as Int16 (generalised evidence)
         instead of float32 values; nodata is still ``NODATA``.
+    outputs : OutputSet, optional
+        The job's outputs, committed together. Without one the writer keeps
+        a set of its own and :meth:`commit` puts the file in place.
     """
 
-    def __init__(self, path: str, grid: Grid, description: str = "", classes: bool = False) -> None:
-        check_writable(path)
+    def __init__(self, path: str, grid: Grid, description: str = "", classes: bool = False,
+                 outputs: OutputSet | None = None) -> None:
+        check_raster_name(path)
         self.path = os.path.abspath(path)
-        folder, name = os.path.split(self.path)
-        handle, self.tmp_path = tempfile.mkstemp(prefix=f".{name}.", suffix=".partial.tif",
-                                                 dir=folder)
-        os.close(handle)
+        self._own = outputs is None
+        self.outputs = outputs if outputs is not None else OutputSet()
+        self.outputs.folder(os.path.dirname(self.path))
+        self.tmp_path = self.outputs.reserve(self.path, ".tif")
+        self.outputs.remove_on_commit(self.path + ".aux.xml")  # statistics of an earlier file
+        self._ds = None
         try:
+            options = [o if o != "PREDICTOR=3" or not classes else "PREDICTOR=2"
+                       for o in CREATION_OPTIONS]
             self._ds = gdal.GetDriverByName("GTiff").Create(
                 self.tmp_path, grid.width, grid.height, 1,
-                gdal.GDT_Int16 if classes else gdal.GDT_Float32,
-                [o if o != "PREDICTOR=3" or not classes else "PREDICTOR=2" for o in CREATION_OPTIONS])
+                gdal.GDT_Int16 if classes else gdal.GDT_Float32, options)
+            self._ds.SetProjection(grid.crs_wkt)
+            self._ds.SetGeoTransform(grid.transform)
+            self._band = self._ds.GetRasterBand(1)
+            self._band.SetNoDataValue(NODATA)
+            if description:
+                self._band.SetDescription(description)
         except RuntimeError as exc:
-            os.unlink(self.tmp_path)
+            self.abort()
             raise OutputError(f"cannot create {self.path}: {exc}") from None
-        self._ds.SetProjection(grid.crs_wkt)
-        self._ds.SetGeoTransform(grid.transform)
         self._dtype = np.int16 if classes else np.float32
-        self._band = self._ds.GetRasterBand(1)
-        self._band.SetNoDataValue(NODATA)
-        if description:
-            self._band.SetDescription(description)
 
     def write(self, window: Window, values: np.ndarray) -> None:
-        """Write one block of float values; NaN becomes the declared nodata."""
+        """Write one block of float values; NaN becomes the declared nodata.
+
+        Raises
+        ------
+        OutputError
+            GDAL could not write the block (a full disk, a failing device).
+        """
         missing = np.isnan(values)
         block = np.where(missing, NODATA, values).astype(self._dtype)
-        self._band.WriteArray(block, window.col_off, window.row_off)
+        try:
+            self._band.WriteArray(block, window.col_off, window.row_off)
+        except RuntimeError as exc:
+            raise OutputError(f"cannot write {self.path} (rows {window.row_off}–"
+                              f"{window.row_off + window.height - 1}): {exc}; {_space(self.path)}") from None
 
     def set_metadata(self, items: dict[str, str], statistics: dict | None = None) -> None:
         """Store metadata items on the dataset and band statistics on the band."""
@@ -104,33 +149,54 @@ class RasterWriter:
             self._band.SetStatistics(statistics["min"], statistics["max"], statistics["mean"],
                                      statistics["std"])
 
-    def commit(self) -> str:
-        """Close the file and move it to its final name; return that name."""
-        self._close()
+    def finish(self) -> str:
+        """Flush and close the temporary file, checking that every byte reached the disk.
+
+        Returns
+        -------
+        str
+            The temporary file, complete, ready for the output set's commit.
+
+        Raises
+        ------
+        OutputError
+            The flush or the close failed (a full disk, say).
+        """
+        if self._ds is None:
+            return self.tmp_path
+        self._band = None
+        holder, self._ds = [self._ds], None
+        error = ""
         try:
-            # mkstemp made the file private; give it the permissions a new file normally gets.
-            umask = os.umask(0)
-            os.umask(umask)
-            os.chmod(self.tmp_path, 0o666 & ~umask)
-            os.replace(self.tmp_path, self.path)
-        except OSError as exc:
+            holder[0].FlushCache()
+        except RuntimeError as exc:
+            error = str(exc)
+        error = "; ".join(dict.fromkeys(e for e in (error, _close_dataset(holder)) if e))
+        if error:
+            raise OutputError(f"cannot finish {self.path}: {error}; {_space(self.path)}. "
+                              "Nothing was written under that name")
+        return self.tmp_path
+
+    def commit(self) -> str:
+        """Finish the file and, with an output set of its own, put it in place; return the final name."""
+        try:
+            self.finish()
+            if self._own:
+                self.outputs.commit()
+        except BaseException:
             self.abort()
-            raise OutputError(f"cannot move the finished raster to {self.path}: "
-                              f"{exc.strerror or exc}") from None
-        stale = self.path + ".aux.xml"
-        if os.path.exists(stale):
-            os.unlink(stale)
+            raise
         return self.path
 
     def abort(self) -> None:
         """Close and delete the temporary file; the final name is left as it was."""
-        self._close()
-        for path in (self.tmp_path, self.tmp_path + ".aux.xml"):
-            if os.path.exists(path):
-                os.unlink(path)
-
-    def _close(self) -> None:
         if self._ds is not None:
             self._band = None
-            self._ds.FlushCache()
-            self._ds = None
+            holder, self._ds = [self._ds], None
+            _close_dataset(holder)  # a failing close changes nothing: the file is removed
+        if self._own:
+            self.outputs.abort()
+        else:
+            for path in (self.tmp_path, self.tmp_path + ".aux.xml"):
+                if os.path.exists(path):
+                    os.unlink(path)
