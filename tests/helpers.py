@@ -4,10 +4,14 @@ from __future__ import annotations
 
 import json
 import os
+import subprocess
+import sys
 from pathlib import Path
 
 import numpy as np
 from osgeo import gdal, ogr, osr
+
+ROOT = Path(__file__).resolve().parent.parent
 
 gdal.UseExceptions()
 ogr.UseExceptions()
@@ -97,3 +101,9 @@ def write_tree(path, doc) -> str:
     """Write a tree document as JSON and return its path."""
     Path(path).write_text(json.dumps(doc, indent=2), encoding="utf-8")
     return str(path)
+
+
+def run_cli(*args, preexec_fn=None, timeout: int = 300) -> subprocess.CompletedProcess:
+    """Run ``python -m favour_plugin`` in a fresh interpreter, as a user would."""
+    return subprocess.run([sys.executable, "-m", "favour_plugin", *map(str, args)], cwd=ROOT,
+                          capture_output=True, text=True, timeout=timeout, preexec_fn=preexec_fn)

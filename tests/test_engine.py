@@ -11,11 +11,6 @@ from osgeo import gdal
 
 from favour_plugin.core.errors import (
     AlignmentWarning,
-    CancelledError,
-    GridError,
-    InputError,
-    LineageError,
-    MissingInputError,
     NodataWarning,
 )
 from favour_plugin.core.feedback import Feedback
@@ -261,24 +256,6 @@ def test_progress_rises_to_one(layers):
     assert all(b >= a for a, b in zip(feedback.progress, feedback.progress[1:]))
 
 
-def _leftovers(folder):
-    """Files and folders a failed run must not leave behind."""
-    return [p for p in os.listdir(folder) if ".partial" in p or p.startswith(".favour-")]
-
-
-def test_cancel_part_way_leaves_nothing_and_keeps_the_old_output(layers):
-    """A cancel mid-stream raises CancelledError; the previous output is untouched, no partials."""
-    folder, paths, _ = layers
-    tree = Tree.from_dict(three_leaf_tree(paths))
-    target = folder / "fav.tif"
-    target.write_bytes(b"the user's earlier map")
-    with pytest.raises(CancelledError):
-        evaluate_tree(tree, str(target), str(folder / "nodes"), Recorder(cancel_after=3), threads=2)
-    assert target.read_bytes() == b"the user's earlier map"
-    assert not (folder / "fav.tif.lineage.json").exists()
-    assert _leftovers(folder) == [] and os.listdir(folder / "nodes") == []
-
-
 def test_reproduce_says_identical_then_names_the_changed_input(layers):
     """reproduce: identical on a fresh output; after one cell of one input changes, it names it."""
     folder, paths, arrays = layers
@@ -310,55 +287,6 @@ def test_reproduce_rebuilds_a_missing_output_from_lineage_alone(layers):
     outcome = reproduce(str(out))
     assert outcome.rebuilt
     np.testing.assert_array_equal(read_raster(out), first)
-
-
-def test_reproduce_without_lineage_is_a_clear_error(tmp_path):
-    """No lineage beside the raster: LineageError naming the missing file."""
-    path = write_raster(tmp_path / "plain.tif", np.zeros((3, 3), np.float32))
-    with pytest.raises(LineageError, match="plain.tif.lineage.json does not exist"):
-        reproduce(path)
-
-
-@pytest.mark.parametrize("make, error, message", [
-    (lambda d, p: leaf("Missing", d / "nope.tif", {"type": "linear", "lower": 0, "upper": 1}),
-     MissingInputError, r"Favourability > Missing: the layer file .*nope.tif does not exist"),
-    (lambda d, p: leaf("Empty", write_vector(d / "empty.gpkg", [], layer="none"),
-                       {"type": "linear", "lower": 0, "upper": 1}, measure="distance"),
-     InputError, r"Favourability > Empty: the vector layer empty.gpkg:none has no features"),
-    (lambda d, p: leaf("NoCRS", write_raster(d / "nocrs.tif", np.ones((260, 300), np.float32), crs=None),
-                       {"type": "linear", "lower": 0, "upper": 1}),
-     GridError, r"Favourability > NoCRS: the layer .*nocrs.tif has no CRS"),
-    (lambda d, p: leaf("NoCRSv", write_vector(d / "nocrs.gpkg", ["POINT (500100 1019900)"], crs=None),
-                       {"type": "linear", "lower": 0, "upper": 1}, measure="distance"),
-     GridError, r"Favourability > NoCRSv: the vector layer nocrs.gpkg:features has no CRS"),
-    (lambda d, p: leaf("Far", write_raster(d / "far.tif", np.ones((5, 5), np.float32),
-                                           origin=(9e6, 9e6)),
-                       {"type": "linear", "lower": 0, "upper": 1}),
-     GridError, r"Favourability > Far: the layer .*far.tif .* does not overlap the grid"),
-    (lambda d, p: leaf("Not mu", p["mag"], {"type": "identity"}),
-     InputError, r"Favourability > Not mu: membership 'identity' needs values already in \[0, 1\]"),
-])
-def test_bad_inputs_name_the_node_and_leave_no_output(layers, make, error, message):
-    """Each unusable input raises its error with the node path; no output or partial file remains."""
-    folder, paths, _ = layers
-    doc = tree_doc([leaf("Mag", paths["mag"], {"type": "linear", "lower": 60, "upper": 160}),
-                    make(folder, paths)], grid={"reference": paths["mag"]})
-    out = folder / "out"
-    with pytest.raises(error, match=message):
-        evaluate_tree(Tree.from_dict(doc), str(out / "fav.tif"), str(out / "nodes"))
-    assert not (out / "fav.tif").exists() and _leftovers(out) == []
-
-
-def test_output_that_cannot_be_written_is_refused_before_work(layers):
-    """An output whose folder cannot be created (a file is in the way) fails at once, cleanly."""
-    folder, paths, _ = layers
-    blocker = folder / "blocker"
-    blocker.write_text("a file, not a folder")
-    from favour_plugin.core.errors import OutputError
-    with pytest.raises(OutputError, match="cannot write to the folder .*blocker"):
-        evaluate_tree(Tree.from_dict(three_leaf_tree(paths)), str(blocker / "fav.tif"))
-    with pytest.raises(OutputError, match="must be a GeoTIFF"):
-        evaluate_tree(Tree.from_dict(three_leaf_tree(paths)), str(folder / "fav.png"))
 
 
 def test_windows_cover_the_grid_exactly_once():

@@ -1,13 +1,11 @@
 """Membership functions against scikit-fuzzy and against the properties they must have."""
 
 import numpy as np
-import pytest
 import skfuzzy
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from favour_plugin.core import membership as m
-from favour_plugin.core.errors import InputError, ParameterError
 
 RNG = np.random.default_rng(20261201)
 X = np.concatenate([RNG.uniform(-50, 150, 2000), np.linspace(-50, 150, 401)])
@@ -101,36 +99,10 @@ def test_rising_functions_are_monotone(values, lower, width):
         assert np.all(np.diff(mu) >= -1e-15)
 
 
-@pytest.mark.parametrize("spec, message", [
-    ({"type": "linear", "lower": 5, "upper": 5}, "'lower' and 'upper' are both 5"),
-    ({"type": "linear", "lower": 5}, "needs a numeric 'upper', which is missing"),
-    ({"type": "linear", "lower": "five", "upper": 6}, "'lower' must be a number, got 'five'"),
-    ({"type": "linear", "lower": True, "upper": 6}, "'lower' must be a number"),
-    ({"type": "logistic", "midpoint": 1, "slope": 0}, "'slope' is 0"),
-    ({"type": "gaussian", "centre": 1, "spread": -2}, "'spread' must be positive, got -2"),
-    ({"type": "trapezoid", "points": [4, 3, 5, 6]}, "must be ordered a <= b <= c <= d"),
-    ({"type": "trapezoid", "points": [1, 2, 3]}, "must be four numbers"),
-    ({"type": "trapezoid", "points": [2, 2, 2, 2]}, "with a < d"),
-    ({"type": "piecewise", "points": [[0, 0], [0, 1]]}, "x values must increase strictly"),
-    ({"type": "piecewise", "points": [[0, 0], [1, 1.5]]}, "must lie in \\[0, 1\\], got 1.5"),
-    ({"type": "categories", "scores": {"a": 0.5}, "default": 0}, "class code 'a' is not a number"),
-    ({"type": "categories", "scores": {"1": 0.5}}, "needs 'default'"),
-    ({"type": "categories", "scores": {}, "default": 0}, "non-empty map"),
-    ({"type": "sigmoid"}, "unknown membership type 'sigmoid'"),
-    ({"lower": 1}, "unknown membership type None"),
-])
-def test_bad_parameters_are_named(spec, message):
-    """Each bad parameter raises ParameterError whose message names it and its value."""
-    with pytest.raises(ParameterError, match=message):
-        m.parse_membership(spec)
-
-
-def test_identity_refuses_values_outside_unit_interval():
-    """identity passes μ through but refuses a raster that is not μ (value 1.7)."""
+def test_identity_passes_mu_through():
+    """identity passes μ through (a hair over 1 clipped); its refusal of 1.7 is in test_refusals."""
     spec = m.parse_membership({"type": "identity"})
     np.testing.assert_allclose(spec(np.array([0.0, 0.5, 1.0 + 1e-7, np.nan])), [0, 0.5, 1, np.nan])
-    with pytest.raises(InputError, match="found 1.7"):
-        spec(np.array([0.2, 1.7]))
 
 
 def test_output_is_float64_and_keeps_shape():

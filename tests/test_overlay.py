@@ -7,7 +7,6 @@ from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
 from favour_plugin.core import overlay as o
-from favour_plugin.core.errors import GridMismatchError, ParameterError
 
 unit = st.floats(0.0, 1.0, allow_nan=False)
 
@@ -116,21 +115,3 @@ def test_weighted_mean_ignore_renormalises_weights():
     np.testing.assert_allclose(o.weighted_mean(children, [1, 3], "propagate"), [0.875, NAN])
 
 
-@pytest.mark.parametrize("spec, message", [
-    ({"type": "gamma"}, "needs a numeric 'gamma'"),
-    ({"type": "gamma", "gamma": 1.5}, "must lie in \\[0, 1\\], got 1.5"),
-    ({"type": "gamma", "gamma": -0.1}, "must lie in \\[0, 1\\]"),
-    ({"type": "gamma", "gamma": "high"}, "must be a number, got 'high'"),
-    ({"type": "xor"}, "unknown operator type 'xor'"),
-    ({"type": "and", "nodata": "skip"}, "unknown nodata rule 'skip'"),
-])
-def test_bad_operators_are_named(spec, message):
-    """Bad operator specs raise ParameterError naming the value."""
-    with pytest.raises(ParameterError, match=message):
-        o.parse_operator(spec)
-
-
-def test_children_on_different_grids_are_refused():
-    """Children of different shapes raise GridMismatchError naming both shapes."""
-    with pytest.raises(GridMismatchError, match=r"\(3,\).*\(2,\)"):
-        o.fuzzy_and([np.zeros(2), np.zeros(3)])

@@ -17,7 +17,6 @@ from qgis.core import (
     QgsFeature,
     QgsGeometry,
     QgsPointXY,
-    QgsProcessingException,
     QgsProcessingFeedback,
     QgsVectorLayer,
 )
@@ -355,14 +354,6 @@ def test_combine_aligns_another_grid_and_warns(data, tmp_path):
     assert "warning:" in feedback.text and "resampling" in feedback.text
 
 
-def test_combine_refuses_values_that_are_not_memberships(data, tmp_path):
-    """A raster with values outside [0, 1] is refused with a message saying it is not μ."""
-    with pytest.raises(QgsProcessingException, match="identity"):
-        run("favour:combine", {"INPUTS": [data["mu"][0], data["grade"]], "OPERATOR": "and",
-                               "OUTPUT": str(tmp_path / "out.tif")})
-    assert not os.path.exists(tmp_path / "out.tif")
-
-
 # -- favour:reproduce --------------------------------------------------------------
 
 
@@ -386,46 +377,7 @@ def test_reproduce_finds_identical_cells_then_names_a_changed_input(tmp_path):
     assert "1 of 200 cells differ" in feedback.text
 
 
-def test_reproduce_without_lineage_fails_clearly(data):
-    """A raster without a lineage record is refused with a message naming the missing lineage."""
-    with pytest.raises(QgsProcessingException, match="no lineage found"):
-        run("favour:reproduce", {"INPUT": data["grade"]})
-
-
 # -- bad parameters and cancel ----------------------------------------------------------
-
-
-@pytest.mark.parametrize("parameters, named", [
-    ({"FUNCTION": "linear", "LOWER": 1.0}, "UPPER"),
-    ({"FUNCTION": "linear", "LOWER": 5.0, "UPPER": 5.0}, "LOWER, UPPER"),
-    ({"FUNCTION": "logistic", "MIDPOINT": 5.0, "SLOPE": 0.0}, "SLOPE"),
-    ({"FUNCTION": "gaussian", "SPREAD": 2.0}, "CENTRE"),
-    ({"FUNCTION": "gaussian", "CENTRE": 1.0, "SPREAD": -2.0}, "SPREAD"),
-    ({"FUNCTION": "trapezoid", "POINTS": "1, 2, 3"}, "POINTS"),
-    ({"FUNCTION": "trapezoid", "POINTS": "4, 3, 2, 1"}, "POINTS"),
-    ({"FUNCTION": "trapezoid", "POINTS": "1, 2, three, 4"}, "POINTS"),
-    ({"FUNCTION": "piecewise", "POINTS": "0:0, 10:1.5"}, "POINTS"),
-    ({"FUNCTION": "piecewise", "POINTS": "0:0, 10"}, "POINTS"),
-    ({"FUNCTION": "piecewise", "POINTS": "10:0, 0:1"}, "POINTS"),
-    ({"FUNCTION": "categories"}, "SCORES"),
-    ({"FUNCTION": "categories", "SCORES": "1:0.5, 2:1.2"}, "SCORES"),
-    ({"FUNCTION": "categories", "SCORES": "1:0.5, 1.0:0.2"}, "SCORES"),
-    ({"FUNCTION": "categories", "SCORES": "granite:0.5"}, "SCORES"),
-], ids=lambda v: v if isinstance(v, str) else v["FUNCTION"])
-def test_bad_membership_parameters_name_the_parameter(data, tmp_path, parameters, named):
-    """A missing or unusable membership parameter raises QgsProcessingException naming it; no output."""
-    out = tmp_path / "mu.tif"
-    with pytest.raises(QgsProcessingException, match=named):
-        run("favour:membership", {"INPUT": data["grade"], "OUTPUT": str(out), **parameters})
-    assert not out.exists()
-
-
-@pytest.mark.parametrize("weights", ["1, 2", "1, -1, 1", "1, x, 1", "0, 0, 0"])
-def test_bad_weights_name_the_parameter(data, tmp_path, weights):
-    """Weights of the wrong count, negative, not numbers or all zero raise naming WEIGHTS."""
-    with pytest.raises(QgsProcessingException, match="WEIGHTS"):
-        run("favour:combine", {"INPUTS": data["mu"], "OPERATOR": "weighted_mean",
-                               "WEIGHTS": weights, "OUTPUT": str(tmp_path / "out.tif")})
 
 
 def test_parameter_keys_equal_their_constants():
@@ -443,33 +395,21 @@ def test_parameter_keys_equal_their_constants():
         assert "not a resource estimate" in algorithm.shortHelpString()
 
 
-def _cancel_cases(data, tmp_path):
-    """Return (algorithm, parameters) for each algorithm that writes a raster."""
-    x, y = cell_centre(5, 5)
-    points = write_vector(tmp_path / "points.gpkg", [f"POINT ({x} {y})"])
-    return {
-        "membership": ("favour:membership", {"INPUT": data["grade"], "FUNCTION": "linear",
-                                             "LOWER": 0.0, "UPPER": 1.0}),
-        "distance": ("favour:distancemembership", {"INPUT": points, "REFERENCE": data["grade"],
-                                                   "FUNCTION": "linear", "LOWER": 500.0,
-                                                   "UPPER": 0.0}),
-        "distance-memory": ("favour:distancemembership", {
-            "INPUT": _memory_points(POINT_CELLS), "REFERENCE": data["grade"],
-            "FUNCTION": "linear", "LOWER": 500.0, "UPPER": 0.0}),
-        "combine": ("favour:combine", {"INPUTS": data["mu"], "OPERATOR": "gamma", "GAMMA": 0.7}),
-    }
 
 
-@pytest.mark.parametrize("case", ["membership", "distance", "distance-memory", "combine"])
-def test_cancel_leaves_no_file_at_output(data, tmp_path, case):
-    """Cancelling at the first progress report raises and leaves nothing at OUTPUT or beside it."""
-    algorithm, parameters = _cancel_cases(data, tmp_path)[case]
-    folder = tmp_path / "out"
-    folder.mkdir()
-    out = folder / "result.tif"
-    feedback = QgsProcessingFeedback()
-    feedback.progressChanged.connect(lambda progress: progress > 0 and feedback.cancel())
-    with pytest.raises(QgsProcessingException, match="cancelled"):
-        run(algorithm, {**parameters, "OUTPUT": str(out)}, feedback)
-    assert feedback.isCanceled()
-    assert sorted(os.listdir(folder)) == []
+def test_a_temporary_output_is_announced_before_the_work(data):
+    """An output left to QGIS's temporary folder gets a warning that it vanishes when QGIS closes."""
+    feedback = RecordingFeedback()
+    result = run("favour:membership", {"INPUT": data["grade"], "FUNCTION": "linear", "LOWER": 0.0,
+                                       "UPPER": 100.0, "OUTPUT": "TEMPORARY_OUTPUT"}, feedback)
+    assert os.path.exists(result["OUTPUT"])
+    assert "warning: " + result["OUTPUT"] + " is in a temporary folder, which is emptied when QGIS " \
+           "closes" in feedback.text
+
+
+def test_an_output_of_ones_own_gets_no_temporary_warning(data, tmp_path):
+    """An output in a folder of the user's own carries no such warning (pytest's folder aside)."""
+    from favour_plugin.processing.base import in_temporary_folder
+
+    assert in_temporary_folder(str(tmp_path / "mu.tif"))  # pytest works under the system's /tmp
+    assert not in_temporary_folder(os.path.expanduser("~/Documents/Favour/mu.tif"))

@@ -2,7 +2,6 @@
 
 import csv
 import importlib.util
-import os
 import subprocess
 from pathlib import Path
 
@@ -11,13 +10,13 @@ import pytest
 from statsmodels.stats.contingency_tables import Table2x2
 
 from favour_plugin.core import wofe
-from favour_plugin.core.errors import GridError, InputError, ParameterError
+from favour_plugin.core.errors import ParameterError
 from favour_plugin.core.feedback import Feedback
 from favour_plugin.core.membership import parse_membership
 from favour_plugin.core.tree import Tree
 from favour_plugin.raster.engine import evaluate_tree
 from favour_plugin.raster.wofe_jobs import evidence_weights, posterior, read_weights_table
-from tests.helpers import ORIGIN, TEST_CRS, leaf, read_raster, srs, tree_doc, write_raster, write_vector
+from tests.helpers import ORIGIN, leaf, read_raster, tree_doc, write_raster, write_vector
 
 ROOT = Path(__file__).resolve().parent.parent
 CELL = 100.0  # m, so one cell is 0.01 km²
@@ -243,49 +242,6 @@ def test_demo_planted_control_is_significant_and_planted_noise_is_not(tmp_path):
     assert row["contrast"] > 0 and row["studentized_contrast"] > 1.96
 
 
-def _leftovers(folder):
-    return [p for p in os.listdir(folder) if ".partial" in p or p.startswith(".favour-")]
-
-
-@pytest.mark.parametrize("case", ["no deposits", "all nodata", "one class", "not integer",
-                                  "geographic", "polygons as deposits", "breaks for categorical"])
-def test_bad_input_is_named_and_leaves_no_output(tmp_path, case):
-    """Each unusable input gives a message naming the problem and writes nothing."""
-    values = np.tile(np.array([1, 2], np.uint8), (20, 10))
-    evidence = write_raster(tmp_path / "e.tif", values, cell=CELL)
-    deposits = write_vector(tmp_path / "d.gpkg", points_wkt([(1, 0), (3, 2), (5, 1)]), layer="d")
-    method, kwargs, error, message = "categorical", {}, InputError, ""
-    if case == "no deposits":
-        deposits = write_vector(tmp_path / "none.gpkg", [], layer="d")
-        message = "has no features; weights of evidence needs known deposits"
-    elif case == "all nodata":
-        evidence = write_raster(tmp_path / "n.tif", np.full((20, 20), -9999, np.float32), cell=CELL,
-                                nodata=-9999)
-        message = "nodata in every one of the 400 cells"
-    elif case == "one class":
-        message = "all 3 deposits on known evidence fall in class 1"
-        deposits = write_vector(tmp_path / "one.gpkg", points_wkt([(1, 0), (3, 2), (5, 4)]), layer="d")
-    elif case == "not integer":
-        evidence = write_raster(tmp_path / "f.tif", values.astype(np.float32) + 0.25, cell=CELL)
-        message = "categorical evidence needs whole-number class codes"
-    elif case == "geographic":
-        subprocess.run(["gdalwarp", "-q", "-t_srs", "EPSG:4326", evidence, str(tmp_path / "g.tif")],
-                       check=True)
-        evidence, error, message = str(tmp_path / "g.tif"), GridError, "not projected"
-    elif case == "polygons as deposits":
-        deposits = write_vector(tmp_path / "poly.gpkg", ["POLYGON ((500000 1019000, 500500 1019000, "
-                                                         "500500 1019500, 500000 1019000))"], layer="p")
-        message = "deposits must be points"
-    else:
-        kwargs, error, message = {"breaks": [1, 2]}, ParameterError, "breaks apply to ascending"
-    out = tmp_path / "out"
-    out.mkdir()
-    with pytest.raises(error, match=message):
-        evidence_weights(evidence, deposits, method, str(out / "w.csv"), unit_area_km2=CELL_KM2,
-                         output_generalised=str(out / "g.tif"), **kwargs)
-    assert os.listdir(out) == [] and _leftovers(tmp_path) == []
-
-
 def test_study_area_limits_the_counts(tmp_path):
     """Cells and deposits outside the study polygon are left out (and the deposits reported)."""
     values = np.tile(np.array([0, 1], np.uint8), (50, 25))
@@ -322,21 +278,6 @@ def test_processing_algorithms_match_the_jobs_and_statsmodels(favour_provider, t
         "OUTPUT_REPORT": str(tmp_path / "r.html")})
     assert post["OBSERVED"] == a + c and post["RATIO"] == pytest.approx(1.0)
     assert Path(post["OUTPUT_REPORT"]).read_text().count("Agterberg") >= 1
-
-
-def test_processing_bad_input_is_a_processing_error(favour_provider, tmp_path):
-    """A bad input reaches the user as QgsProcessingException with Favour's message."""
-    import processing
-    from qgis.core import QgsProcessingException
-
-    evidence = write_raster(tmp_path / "e.tif", np.ones((10, 10), np.uint8), cell=CELL)
-    empty = write_vector(tmp_path / "none.gpkg", points_wkt([(50, 50)]), layer="d")
-    with pytest.raises(QgsProcessingException, match="none of the 1 points"):
-        processing.run("favour:evidenceweights", {
-            "EVIDENCE": evidence, "DEPOSITS": empty, "METHOD": "binary",
-            "OUTPUT_TABLE": str(tmp_path / "w.csv")})
-    assert not (tmp_path / "w.csv").exists()
-    assert srs(TEST_CRS).IsProjected()
 
 
 def test_byte_histogram_equals_numpy_bincount():
