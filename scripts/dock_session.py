@@ -1,26 +1,45 @@
-"""Run inside QGIS desktop (``qgis --code``): open the dock on the demo, run it, take a screenshot, quit.
+"""Run inside QGIS desktop (``qgis --code``): the dock on the demo, a run, a quick look, File › New, Exit.
 
 Started by ``scripts/screenshot_dock.py``, which passes the paths in the
 ``FAVOUR_DESKTOP`` environment variable (JSON: ``tree``, ``layers``,
-``results``, ``screenshot``, ``status``). Steps are chained on timers so the
-QGIS event loop keeps running; every step's failure is written to the status
-file, and QGIS quits in every case.
+``screenshot``, ``keep_screenshot``, ``status``, ``timeout``). Steps are
+chained on timers so the QGIS event loop keeps running; every step's failure
+is written to the status file, and QGIS quits in every case.
+
+1. In the new, unsaved project QGIS starts with, open the dock from its
+   toolbar button, open the demo tree file (it lies in the temporary folder)
+   and run it with no results folder chosen: the run goes to the default.
+2. Frame the map (the project takes the demo's CRS) and save the dock's
+   screenshot.
+3. Make a quick look (temporary), then choose File › New as a user would.
+   Every dialog that opens is recorded; QGIS's own questions are answered
+   (discard, go on), and while Favour's keep question is open the screen is
+   saved, then *Keep* is pressed.
+4. Open the tree again, make another quick look and choose Project › Exit;
+   the keep question is answered *Discard* and QGIS closes.
+
+Project signals and the number of layers at each are recorded, to show
+which signal fires while the layers are still there.
 """
 
 import json
 import os
 import traceback
 
-from qgis.core import QgsProject, QgsRasterLayer, QgsVectorLayer
+from qgis.core import QgsApplication, QgsCoordinateReferenceSystem, QgsProject, QgsRasterLayer, QgsVectorLayer
 from qgis.PyQt.QtCore import QTimer
 from qgis.PyQt.QtGui import QColor
-from qgis.PyQt.QtWidgets import QApplication, QDockWidget
+from qgis.PyQt.QtWidgets import QApplication, QDockWidget, QMessageBox
 from qgis.utils import iface, plugins
 
 SETTINGS = json.loads(os.environ["FAVOUR_DESKTOP"])
-STATUS = {"steps": [], "error": None}
+STATUS = {"steps": [], "error": None, "dialogs": [], "signals": []}
 LEAF = "Favourability > Source > Dense greenstone keel"
-_KEEP = []  # the run's signal handler must outlive this module's top level
+KEEP_DIALOG = "FavourKeepResults"
+_KEEP = []  # signal handlers and the dialog timer must outlive this module's top level
+_DOCK = []
+_PHASE = ["start"]
+_ANSWERED = "favour_session_answered"
 
 
 def _write_status() -> None:
@@ -28,10 +47,17 @@ def _write_status() -> None:
         json.dump(STATUS, handle, indent=2)
 
 
+def _plugin():
+    return plugins["favour_plugin"]
+
+
 def _quit() -> None:
+    """Leave after an error or time-out: discard temporary results, close the project, exit."""
     _write_status()
-    # Results under the system's temporary folder count as temporary layers, and QGIS would
-    # ask before closing them: close the project first (the dock empties with it).
+    _PHASE[0] = "quit"
+    keeper = getattr(_plugin().gui, "keeper", None)
+    if keeper is not None:
+        keeper.asker = lambda results, folder: False
     QgsProject.instance().clear()
     QTimer.singleShot(5000, _force_quit)
     iface.actionExit().trigger()
@@ -58,6 +84,86 @@ def _step(function):
     return run
 
 
+# -- what QGIS does while a project closes -------------------------------------------------
+
+
+def _record_signal(name: str):
+    def record(*args) -> None:
+        STATUS["signals"].append({"phase": _PHASE[0], "signal": name,
+                                  "layers": len(QgsProject.instance().mapLayers())})
+        _write_status()
+    return record
+
+
+def _follow_project_signals() -> None:
+    project = QgsProject.instance()
+    for name in ("removeAll", "layersWillBeRemoved", "cleared", "aboutToBeCleared"):
+        signal = getattr(project, name, None)
+        if signal is not None:
+            handler = _record_signal(name)
+            _KEEP.append(handler)
+            signal.connect(handler)
+
+
+def _answer_dialogs() -> None:
+    """Answer the modal dialog on top, once: Favour's keep question as the phase says, QGIS's to go on."""
+    try:
+        box = QApplication.activeModalWidget()
+        if box is None or box.property(_ANSWERED):
+            return
+        box.setProperty(_ANSWERED, True)  # not id(): a later dialog's wrapper may reuse it
+        record = {"phase": _PHASE[0], "name": box.objectName(), "title": box.windowTitle(),
+                  "layers_in_project": len(QgsProject.instance().mapLayers())}
+        if isinstance(box, QMessageBox):
+            record.update(text=box.text(), informative=box.informativeText(),
+                          buttons=[b.text().replace("&", "") for b in box.buttons()])
+        STATUS["dialogs"].append(record)
+        _write_status()
+        if box.objectName() == KEEP_DIALOG:
+            keep = _PHASE[0] == "new"
+            QTimer.singleShot(1200, lambda: _answer_keep(box, keep))
+        elif isinstance(box, QMessageBox):
+            roles = {box.buttonRole(b): b for b in box.buttons()}
+            for role in (QMessageBox.DestructiveRole, QMessageBox.YesRole, QMessageBox.AcceptRole):
+                if role in roles:
+                    roles[role].click()
+                    break
+        else:
+            box.reject()
+    except Exception:  # recorded; the session goes on to its time-out
+        STATUS["error"] = STATUS["error"] or traceback.format_exc()
+        _write_status()
+
+
+def _answer_keep(box, keep: bool) -> None:
+    """Save the screen with the question open (first time only), then press Keep or Discard."""
+    try:
+        if keep and "keep_screenshot" not in STATUS:
+            STATUS["keep_screenshot"] = SETTINGS["keep_screenshot"]
+            QApplication.processEvents()
+            if not QApplication.primaryScreen().grabWindow(0).save(SETTINGS["keep_screenshot"]):
+                raise RuntimeError(f"could not write {SETTINGS['keep_screenshot']}")
+        wanted = "Keep" if keep else "Discard"
+        for button in box.buttons():
+            if button.text().replace("&", "") == wanted:
+                button.click()
+                return
+        raise RuntimeError(f"the keep question has no {wanted} button")
+    except Exception:
+        STATUS["error"] = STATUS["error"] or traceback.format_exc()
+        box.reject()
+
+
+def _start_answering() -> None:
+    timer = QTimer()
+    timer.timeout.connect(_answer_dialogs)
+    timer.start(200)
+    _KEEP.append(timer)
+
+
+# -- the steps --------------------------------------------------------------------------------
+
+
 def _add_context_layers() -> None:
     """Show the known occurrences and the second-order faults above the result."""
     folder = SETTINGS["layers"]
@@ -77,55 +183,123 @@ def _add_context_layers() -> None:
 
 @_step
 def open_dock_and_run() -> None:
-    """Open the dock from the plugin, load the demo tree, select a criterion, start the run."""
+    """Open the dock from the plugin, open the demo tree, start the run with no folder chosen."""
     main = iface.mainWindow()
+    main.move(0, 0)  # no window manager places it: the screen grab of the keep question needs it there
     main.resize(1600, 1000)
-    plugin = plugins["favour_plugin"]
+    _follow_project_signals()
+    _start_answering()
+    STATUS["project_file"] = QgsProject.instance().fileName()
+    plugin = _plugin()
     plugin.gui.action.trigger()  # as a user would: the toolbar button
     dock = plugin.gui.dock
     main.resizeDocks([dock], [600], 1)  # 1 = Qt.Horizontal
     if not dock.open_tree_file(SETTINGS["tree"]):
         raise RuntimeError("the demo tree did not open")
-    dock.controller.set_run_options(SETTINGS["results"], True)
+    dock.controller.set_run_options(component_rasters=True)  # no folder: the default
     dock.select(LEAF)
     browser = main.findChild(QDockWidget, "Browser")
     if browser is not None:
         browser.hide()  # more room for the map
+    STATUS["destination"] = dock.run_bar.destination.text()
+    STATUS["default_folder"] = dock.default_folder()
     dock.run_finished.connect(_finished)
-    _KEEP.append(dock)
+    _DOCK.append(dock)
     if dock.run() is None:
         raise RuntimeError("the dock refused to run the demo tree")
 
 
 def _finished(outcome) -> None:
-    STATUS["outcome"] = {"ok": outcome.ok, "output": outcome.output, "message": outcome.message}
+    """Record each run; go on to the step that follows it."""
+    key = {"start": "outcome", "quick": "quick_outcome", "again": "second_quick_outcome"}[_PHASE[0]]
+    STATUS[key] = {"ok": outcome.ok, "quick": outcome.quick, "folder": outcome.folder,
+                   "output": outcome.output, "lineage": outcome.lineage, "message": outcome.message,
+                   "status": _DOCK[0].run_bar.status.text()}
+    _write_status()
     if not outcome.ok:
         STATUS["error"] = f"the run failed: {outcome.message}"
         _quit()
         return
-    _add_context_layers()
-    QTimer.singleShot(1000, _step(frame_the_map))
+    if _PHASE[0] == "start":
+        _add_context_layers()
+        QTimer.singleShot(1000, _step(frame_the_map))
+    elif _PHASE[0] == "quick":
+        QTimer.singleShot(1500, _step(new_project))
+    else:
+        QTimer.singleShot(1500, _step(exit_qgis))
+
+
+def _demo_crs(crs: QgsCoordinateReferenceSystem) -> QgsCoordinateReferenceSystem:
+    """Return the demo's CRS saved as a custom CRS of the (session's own) profile, as a user would.
+
+    QGIS 3.22's status bar names a CRS by its authority id and shows
+    "Unknown CRS" for one without; a custom CRS gets a ``USER:`` id.
+    """
+    registry = QgsApplication.coordinateReferenceSystemRegistry()
+    srsid = registry.addUserCrs(crs, crs.description() or "Tarrowin local grid")
+    saved = QgsCoordinateReferenceSystem(f"USER:{srsid}") if srsid > 0 else crs
+    return saved if saved.isValid() else crs
 
 
 def frame_the_map() -> None:
-    """Zoom the map to the favourability raster and bring the membership plot into view."""
+    """Give the project the demo's CRS, zoom to the favourability, bring the membership plot into view."""
     canvas = iface.mapCanvas()
     layer = QgsProject.instance().mapLayersByName("Favourability")[0]
     if isinstance(layer, QgsRasterLayer):
+        QgsProject.instance().setCrs(_demo_crs(layer.crs()))
         canvas.setExtent(layer.extent())
     canvas.refresh()
-    dock = _KEEP[0]
+    dock = _DOCK[0]
     dock.editor_scroll.ensureWidgetVisible(dock.editor.membership_panel.plot, 0, 0)
     QTimer.singleShot(2500, _step(screenshot))
 
 
 def screenshot() -> None:
-    """Save the main window, dock and map, as the user sees it."""
+    """Save the main window, dock and map, as the user sees it; then make a quick look."""
     iface.mapCanvas().waitWhileRendering()
     QApplication.processEvents()
+    crs = QgsProject.instance().crs()
+    STATUS["project_crs"] = {"authid": crs.authid(), "description": crs.description()}
     if not iface.mainWindow().grab().save(SETTINGS["screenshot"]):
         raise RuntimeError(f"could not write {SETTINGS['screenshot']}")
-    QTimer.singleShot(200, _quit)
+    QTimer.singleShot(200, _step(quick_look))
+
+
+def quick_look() -> None:
+    """Make a quick look: it lives in QGIS's temporary folder."""
+    _PHASE[0] = "quick"
+    if _DOCK[0].run(quick=True) is None:
+        raise RuntimeError("the dock refused the quick look")
+
+
+def new_project() -> None:
+    """File › New, as a user would; the dialogs are answered by the dialog timer."""
+    _PHASE[0] = "new"
+    iface.actionNewProject().trigger()
+    keeper = _plugin().gui.keeper
+    kept = keeper.last_kept
+    STATUS["kept"] = kept
+    STATUS["kept_files"] = sorted(os.path.relpath(os.path.join(here, f), kept)
+                                  for here, _, files in os.walk(kept) for f in files) if kept else []
+    STATUS["layers_after_new"] = len(QgsProject.instance().mapLayers())
+    QTimer.singleShot(500, _step(quick_look_again))
+
+
+def quick_look_again() -> None:
+    """Open the tree again and make another quick look, to see what Exit does with it."""
+    dock = _DOCK[0]
+    if not dock.open_tree_file(SETTINGS["tree"]):
+        raise RuntimeError("the demo tree did not open again")
+    _PHASE[0] = "again"
+    if dock.run(quick=True) is None:
+        raise RuntimeError("the dock refused the second quick look")
+
+
+def exit_qgis() -> None:
+    """Project › Exit QGIS, as a user would; the keep question is answered Discard."""
+    _PHASE[0] = "exit"
+    QTimer.singleShot(20000, _force_quit)
+    iface.actionExit().trigger()
 
 
 def _give_up() -> None:

@@ -1,11 +1,13 @@
 """Favour started as a user would: QGIS desktop under a virtual display, the plugin from this checkout.
 
 ``scripts/screenshot_dock.py`` starts ``/usr/bin/qgis`` under ``xvfb-run``
-with an isolated profile that enables the plugin; the session script opens
-the dock from its toolbar action, loads the demo tree, runs it and saves a
-screenshot; QGIS's own message log is recorded from start-up. The check is
-QGIS itself: its log must hold no Python error and QGIS must quit cleanly
-(which unloads the plugin).
+with an isolated profile that enables the plugin, and HOME and the temporary
+folder inside the test's folder; the session script opens the dock from its
+toolbar action, loads the demo tree, runs it, saves a screenshot, makes a
+quick look, starts a new project (keeping the quick look when asked) and
+exits; QGIS's own message log is recorded from start-up. The check is QGIS
+itself: its log must hold no Python error and QGIS must quit cleanly (which
+unloads the plugin).
 """
 
 from __future__ import annotations
@@ -19,6 +21,7 @@ from pathlib import Path
 import pytest
 from qgis.PyQt.QtGui import QColor, QImage
 
+from favour_plugin.raster.engine import reproduce
 from favour_plugin.raster.style import RAMP
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -54,18 +57,71 @@ def _ramp_pixels(image: QImage, colour: str, step: int = 4, tolerance: int = 40)
 
 
 def test_desktop_opens_the_dock_runs_the_demo_and_logs_no_python_error(tmp_path):
-    """QGIS desktop loads Favour, the dock runs the demo, the map shows the ramp, no Python error."""
+    """QGIS desktop loads Favour, the dock runs the demo, the map shows the ramp, no Python error.
+
+    The run is made in the new, unsaved project QGIS starts with, with no
+    results folder chosen: it must land in the documents folder Qt names for
+    the session's HOME (QStandardPaths), not in a temporary folder. Then a
+    quick look, File › New and Exit: QGIS's own dialogs and signals decide
+    when Favour's keep question appears, and the kept copy is checked by
+    replaying its lineage (``raster.engine.reproduce``) after QGIS removed
+    the original with its temporary folder.
+    """
     launcher = _launcher()
-    run = launcher.run_desktop(tmp_path / "desktop", tmp_path / "dock.png", timeout=150)
-    assert run.status.get("error") is None, f"{run.status.get('error')}\n{run.output[-3000:]}"
-    assert run.status["steps"] == ["open_dock_and_run", "frame_the_map", "screenshot"]
-    assert run.status["outcome"]["ok"]
+    work = tmp_path / "desktop"
+    run = launcher.run_desktop(work, tmp_path / "dock.png", tmp_path / "keep-results.png", timeout=150)
+    status = run.status
+    assert status.get("error") is None, f"{status.get('error')}\n{run.output[-3000:]}"
+    assert status["steps"] == ["open_dock_and_run", "frame_the_map", "screenshot", "quick_look",
+                               "new_project", "quick_look_again", "exit_qgis"]
+    assert status["project_file"] == ""  # a new, unsaved project
     assert any("\tPlugins\tLoaded Favour" in line for line in run.log), run.log[:20]
     assert run.python_errors() == []
     assert run.favour_errors() == []
     assert run.returncode == 0, run.output[-3000:]
+
+    # The run went to the documents folder, said before the run and named after it.
+    documents = (work / "home" / "Documents" / "Favour").resolve()
+    outcome = status["outcome"]
+    assert outcome["ok"]
+    folder = Path(outcome["folder"])
+    assert folder.parent == documents and folder.name.startswith("run-")
+    assert not str(folder).startswith(str((work / "tmp").resolve()))
+    assert (folder / "favourability.tif").exists() and (folder / "favourability.tif.lineage.json").exists()
+    assert "~/Documents/Favour (the default: in your documents)" in status["destination"]
+    assert "Quick looks are temporary" in status["destination"]
+    assert outcome["status"] == f"Run written to ~/Documents/Favour/{folder.name}"
+    assert status["project_crs"]["description"] == "Tarrowin local grid (transverse Mercator)"
+
+    # File › New: QGIS's own questions first, then Favour's, listing the quick look while it is there.
+    quick = status["quick_outcome"]
+    new = [d for d in status["dialogs"] if d["phase"] == "new"]
+    asked = [d for d in new if d["name"] == "FavourKeepResults"]
+    assert len(asked) == 1 and asked[0]["layers_in_project"] > 0
+    assert "Quick look: Tarrowin orogenic gold (demo)" in asked[0]["informative"]
+    assert quick["output"] in asked[0]["informative"]
+    assert "Run written" not in asked[0]["informative"] and outcome["output"] not in asked[0]["informative"]
+    signals = [(s["signal"], s["layers"] > 0) for s in status["signals"] if s["phase"] == "new"]
+    assert signals.index(("removeAll", True)) < signals.index(("cleared", False))
+    # Keep: a new folder in documents holds the quick look's folder with its lineage ...
+    kept = Path(status["kept"])
+    assert kept.parent == documents and kept.name.startswith("kept-")
+    quick_name = Path(quick["folder"]).name
+    assert {f"{quick_name}/favourability.tif", f"{quick_name}/favourability.tif.lineage.json"} <= \
+        set(status["kept_files"])
+    # ... which outlives QGIS's temporary folder and still reproduces its cells from its lineage.
+    assert not Path(quick["folder"]).exists()
+    assert reproduce(str(kept / quick_name / "favourability.tif")).identical
+
+    # Exit asks again about the second quick look.
+    assert [d["name"] for d in status["dialogs"] if d["phase"] == "exit"][-1] == "FavourKeepResults"
+    exit_signals = [(s["signal"], s["layers"] > 0) for s in status["signals"] if s["phase"] == "exit"]
+    assert exit_signals[0] == ("removeAll", True)
+
     image = QImage(str(tmp_path / "dock.png"))
     assert (image.width(), image.height()) == (1600, 1000)
     # The favourability raster is drawn on the map in the ramp's colours, low to high.
     for _, colour in (RAMP[0], RAMP[3]):
         assert _ramp_pixels(image, colour) > 100, colour
+    question = QImage(str(tmp_path / "keep-results.png"))
+    assert (question.width(), question.height()) == (1600, 1000)

@@ -14,6 +14,7 @@ import json
 import os
 import shutil
 import sys
+import tempfile
 import time
 from pathlib import Path
 
@@ -25,6 +26,7 @@ from qgis.core import (
     QgsApplication,
     QgsLayerTreeModel,
     QgsProcessingFeedback,
+    QgsProcessingUtils,
     QgsProject,
     QgsRasterLayer,
     QgsVectorLayer,
@@ -35,6 +37,7 @@ from favour_plugin.core.tree import Node, Tree
 from favour_plugin.gui import tasks
 from favour_plugin.gui.controller import LAYER_ID_KEY, TreeController
 from favour_plugin.gui.dock import FavourDock
+from favour_plugin.gui.output_folders import DOCUMENTS_FOLDER, RESULTS
 from favour_plugin.gui.project_store import SCOPE, ProjectStore
 from favour_plugin.gui.results import GROUP
 from tests.helpers import read_raster
@@ -715,3 +718,124 @@ def test_saving_the_tree_file_writes_relative_paths_keeps_a_backup_and_no_layer_
     assert far["proxy"]["path"] == str(district / "layers" / "gravity.tif")
     for file in (target, Path(str(target) + ".bak")):
         file.unlink()
+
+
+# -- where results go ------------------------------------------------------------------------
+
+
+@pytest.fixture()
+def lasting_home(tmp_path, monkeypatch):
+    """Point HOME (so Qt's documents folder) into tmp_path, and the system's temporary folder too.
+
+    QStandardPaths reads $HOME and $XDG_CONFIG_HOME on every call; the
+    stand-in temporary folder keeps the rest of tmp_path from counting as
+    temporary.
+    """
+    QgsProcessingUtils.tempFolder()  # QGIS's own temporary folder stays where it was made
+    home, system_tmp = tmp_path / "home", tmp_path / "tmp"
+    home.mkdir()
+    system_tmp.mkdir()
+    monkeypatch.setenv("HOME", str(home))
+    monkeypatch.setenv("XDG_CONFIG_HOME", str(home / ".config"))
+    monkeypatch.setenv("TMPDIR", str(system_tmp))
+    monkeypatch.setattr(tempfile, "tempdir", str(system_tmp))
+    return home
+
+
+def test_the_default_folder_is_beside_the_project_else_the_tree_file_else_in_documents(
+        dock, project, district, tmp_path, lasting_home):
+    """Unsaved and fileless: documents/Favour; a tree file: beside it; a saved project: beside it.
+
+    Reference: Qt's QStandardPaths documents folder for the HOME the test set
+    ($HOME/Documents), and QGIS's own project folder after QgsProject.write.
+    """
+    documents = str(lasting_home / "Documents" / DOCUMENTS_FOLDER)
+    dock.controller.reset(Tree.load(district / TREE_FILE.name))  # as an unsaved project holds it: no file
+    assert (dock.default_folder(), dock.default_destination().reason) == (documents, "documents")
+    text = dock.run_bar.destination.text()
+    assert "~/Documents/Favour" in text and "in your documents" in text
+    assert "Quick looks are temporary" in text
+    assert dock.run_bar.folder_widget.lineEdit().placeholderText() == "~/Documents/Favour"
+
+    tree_copy = tmp_path / "models" / "district.favour.json"
+    tree_copy.parent.mkdir()
+    dock.controller.reset(Tree.load(district / TREE_FILE.name))
+    assert dock.save_tree_file(str(tree_copy)) == str(tree_copy)
+    assert dock.default_folder() == str(tree_copy.parent / RESULTS)
+    assert "beside the tree file" in dock.run_bar.destination.text()
+
+    saved = tmp_path / "survey" / "survey.qgz"
+    saved.parent.mkdir()
+    assert project.write(str(saved))
+    assert dock.default_folder() == str(saved.parent / RESULTS)
+    assert "beside the project" in dock.run_bar.destination.text()
+
+    dock.controller.set_run_options(str(tmp_path / "mine"))
+    assert "(your choice)" in dock.run_bar.destination.text()
+    assert dock.next_folder() == str(tmp_path / "mine")
+    dock.controller.set_run_options(str(Path(tempfile.gettempdir()) / "scratch"))
+    assert "your choice, a temporary folder" in dock.run_bar.destination.text()
+
+
+def test_a_tree_file_in_a_temporary_folder_is_passed_over_for_documents(dock, project, district,
+                                                                         lasting_home):
+    """A tree opened from the system's temporary folder never sends full runs there."""
+    temporary = Path(tempfile.gettempdir()) / "attachment.favour.json"
+    temporary.write_text(json.dumps(Tree.load(district / TREE_FILE.name).to_dict()), encoding="utf-8")
+    dock.controller.reset(Tree.load(temporary), str(temporary))
+    assert dock.default_destination().reason == "documents"
+    assert not dock.default_folder().startswith(tempfile.gettempdir())
+
+
+def test_a_run_from_an_unsaved_project_lands_in_documents_and_the_status_names_its_folder(
+        dock, project, district, lasting_home):
+    """With no folder chosen, no project file and no tree file, the run's folder is in documents/Favour."""
+    dock.controller.reset(Tree.load(district / TREE_FILE.name))
+    outcome = run_and_wait(dock)
+    assert outcome.ok, outcome.message
+    folder = Path(outcome.folder)
+    assert folder.parent == lasting_home / "Documents" / DOCUMENTS_FOLDER and folder.name.startswith("run-")
+    assert Path(outcome.output).parent == folder and Path(outcome.lineage).exists()
+    assert dock.run_bar.status.text() == f"Run written to ~/Documents/Favour/{folder.name}"
+    assert f"~/Documents/Favour/{folder.name}/favourability.tif" in messages(dock.iface, Qgis.Success)
+
+
+def test_a_folder_that_cannot_be_written_refuses_the_run_and_names_it(dock, project, district, tmp_path):
+    """A results folder that cannot be made stops the run before it starts; the message names it."""
+    assert dock.open_tree_file(str(district / TREE_FILE.name))
+    blocker = tmp_path / "a-file"
+    blocker.write_text("not a folder", encoding="utf-8")
+    dock.controller.set_run_options(str(blocker / "results"))
+    assert dock.run() is None
+    assert dock.job is None
+    text = messages(dock.iface)
+    assert "The run did not start: cannot write results to" in text and str(blocker / "results") in text
+
+
+def test_run_folders_made_in_the_same_second_differ(tmp_path, monkeypatch):
+    """Sixteen run folders made at once with one time stamp are sixteen new folders (mkdir is atomic)."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    from favour_plugin.gui import run_job
+
+    monkeypatch.setattr(run_job, "_stamp", lambda: "20300101-000000")
+    first = run_job.run_folder(str(tmp_path))
+    second = run_job.run_folder(str(tmp_path))
+    assert first != second and os.path.isdir(first) and os.path.isdir(second)
+    with ThreadPoolExecutor(8) as pool:
+        made = list(pool.map(lambda _: run_job.run_folder(str(tmp_path)), range(16)))
+    every = [*made, first, second]
+    assert len(set(every)) == 18
+    assert sorted(os.listdir(tmp_path)) == sorted(os.path.basename(f) for f in every)
+
+
+def test_paths_under_home_are_shown_from_the_tilde_and_others_as_they_are(lasting_home, tmp_path):
+    """~ stands for $HOME exactly (as the shell expands it); a sibling sharing its prefix is not shortened."""
+    from favour_plugin.gui.output_folders import display_path
+
+    assert display_path(str(lasting_home / "Documents" / "Favour")) == "~/Documents/Favour"
+    assert os.path.expanduser(display_path(str(lasting_home / "a b"))) == str(lasting_home / "a b")
+    assert display_path(str(lasting_home)) == "~"
+    sibling = str(lasting_home) + "-other"
+    assert display_path(sibling) == sibling
+    assert display_path("") == ""

@@ -409,7 +409,7 @@ def test_a_temporary_output_is_announced_before_the_work(data):
 
 def test_an_output_of_ones_own_gets_no_temporary_warning(data, tmp_path):
     """An output in a folder of the user's own carries no such warning (pytest's folder aside)."""
-    from favour_plugin.processing.base import in_temporary_folder
+    from favour_plugin.processing.base import is_temporary
 
-    assert in_temporary_folder(str(tmp_path / "mu.tif"))  # pytest works under the system's /tmp
-    assert not in_temporary_folder(os.path.expanduser("~/Documents/Favour/mu.tif"))
+    assert is_temporary(str(tmp_path / "mu.tif"))  # pytest works under the system's /tmp
+    assert not is_temporary(os.path.expanduser("~/Documents/Favour/mu.tif"))

@@ -34,11 +34,11 @@ from .defaults import starting_for_proxy
 from .histogram import SampleService
 from .layers import UnusableLayerError, dropped_layers, layer_value_range, proxy_from_layer
 from .node_editor import NodeEditor
-from .output_folders import default_output_folder, quick_look_folder
+from .output_folders import DefaultFolder, default_output, display_path, ensure_writable, quick_look_folder
 from .problems import ProblemChecker
 from .results import add_results
 from .run_bar import RunBar
-from .run_job import RunJob, run_folder
+from .run_job import RunJob, remove_empty_folders, run_folder
 from .tree_view import CriteriaTreeView
 
 
@@ -125,6 +125,13 @@ class FavourDock(QgsDockWidget):
         self.run_bar.folder_changed.connect(lambda folder: c.set_run_options(output_folder=folder))
         self.run_bar.components_toggled.connect(lambda on: c.set_run_options(component_rasters=on))
         c.options_changed.connect(self._show_options)
+        # Saving the project (or Save As) moves the default folder beside it; QgsProject.write(path)
+        # sets the file name without fileNameChanged, so projectSaved is followed too.
+        self._project_links = [(self.project.fileNameChanged, self._show_options),
+                               (self.project.homePathChanged, self._show_options),
+                               (self.project.projectSaved, self._show_options)]
+        for signal, slot in self._project_links:
+            signal.connect(slot)
 
     def shutdown(self) -> None:
         """Stop listening and drop pending work (the plugin is unloading)."""
@@ -133,8 +140,10 @@ class FavourDock(QgsDockWidget):
         if self.job is not None and self.job.running:
             self.job.finished.disconnect(self._run_finished)
             self.job.cancel()
-        for signal, slot in ((self.controller.changed, self.refresh),
-                             (self.controller.options_changed, self._show_options)):
+        links = [(self.controller.changed, self.refresh),
+                 (self.controller.options_changed, self._show_options), *self._project_links]
+        self._project_links = []
+        for signal, slot in links:
             try:
                 signal.disconnect(slot)
             except TypeError:
@@ -162,8 +171,8 @@ class FavourDock(QgsDockWidget):
             title += f" — {tree.name}"
         self.setWindowTitle(title)
 
-    def _show_options(self) -> None:
-        self.run_bar.show_options(self.controller.output_folder, self.default_folder(),
+    def _show_options(self, *args) -> None:
+        self.run_bar.show_options(self.controller.output_folder, self.default_destination(),
                                   self.controller.component_rasters)
 
     def _show_selected(self) -> None:
@@ -206,6 +215,7 @@ class FavourDock(QgsDockWidget):
             notify(self.iface, tr("The tree was not saved: {error}").format(error=exc), Qgis.Critical)
             return None
         notify(self.iface, tr("Tree saved to {path}").format(path=saved), Qgis.Success, 4)
+        self._show_options()  # the default folder may now be beside the tree file
         return saved
 
     def _open_dialog(self) -> None:
@@ -332,15 +342,26 @@ class FavourDock(QgsDockWidget):
 
     # -- running --------------------------------------------------------------------------
 
+    def default_destination(self) -> DefaultFolder:
+        """Return where full runs write when no folder is chosen, and why (never a temporary folder)."""
+        return default_output(self.project, self.controller.file_path)
+
     def default_folder(self) -> str:
-        """Return where runs write when no folder is chosen."""
-        return default_output_folder(self.project)
+        """Return where full runs write when no folder is chosen."""
+        return self.default_destination().path
+
+    def next_folder(self) -> str:
+        """Return the folder the next full run writes a run folder in (chosen, else the default)."""
+        return self.controller.output_folder or self.default_folder()
 
     def run(self, quick: bool = False) -> RunJob | None:
         """Evaluate the tree in the background (``quick``: on a coarse grid); return the job.
 
-        Returns None, with a message, when there is no tree, a run is going on
-        or the tree has problems that stop an evaluation.
+        Returns None, with a message, when there is no tree, a run is going on,
+        the tree has problems that stop an evaluation, or the results folder
+        cannot be made or written (the message names it). A full run writes
+        to a new folder ``run-YYYYMMDD-HHMMSS`` in :meth:`next_folder`; a
+        quick look to a temporary folder.
         """
         tree = self.controller.tree
         if tree is None:
@@ -356,14 +377,19 @@ class FavourDock(QgsDockWidget):
             notify(self.iface, tr("The tree cannot run yet: {problems}{more}").format(
                 problems=shown, more=more), Qgis.Critical, 10)
             return None
-        base = quick_look_folder() if quick else (self.controller.output_folder or self.default_folder())
-        job = RunJob(self.controller.run_copy(), run_folder(base, quick), self.controller.component_rasters,
-                     quick)
+        try:
+            base = quick_look_folder() if quick else ensure_writable(self.next_folder())
+            folder = run_folder(base, quick)
+        except OSError as exc:  # OutputError names the folder; a bare OSError names its file
+            notify(self.iface, tr("The run did not start: {error}").format(error=exc), Qgis.Critical, 0)
+            return None
+        job = RunJob(self.controller.run_copy(), folder, self.controller.component_rasters, quick)
         job.progress_changed.connect(self.run_bar.set_progress)
         job.finished.connect(self._run_finished)
         try:
             job.start()
         except (RuntimeError, FavourError, OSError) as exc:
+            remove_empty_folders(folder)
             notify(self.iface, str(exc), Qgis.Critical)
             return None
         self.job = job
@@ -386,10 +412,14 @@ class FavourDock(QgsDockWidget):
             except RuntimeError as exc:
                 notify(self.iface, str(exc), Qgis.Critical)
             self.run_bar.set_progress(100)
-            self.run_bar.status.setText(tr("Written to {path}").format(path=outcome.output))
-            if not outcome.quick:
+            if outcome.quick:
+                self.run_bar.status.setText(tr("Quick look in a temporary folder: {folder}").format(
+                    folder=display_path(outcome.folder)))
+            else:
+                self.run_bar.status.setText(tr("Run written to {folder}").format(
+                    folder=display_path(outcome.folder)))
                 notify(self.iface, tr("Favourability written to {path}, with its lineage. {caution}")
-                       .format(path=outcome.output, caution=tr(CAUTION)), Qgis.Success, 8)
+                       .format(path=display_path(outcome.output), caution=tr(CAUTION)), Qgis.Success, 8)
         elif outcome.cancelled:
             self.run_bar.status.setText(tr("Cancelled; nothing was written."))
         else:

@@ -9,6 +9,7 @@ from qgis.PyQt.QtWidgets import QComboBox, QFormLayout, QGroupBox, QLabel, QSpin
 
 from .common import notify, tr
 from .layers import UnusableLayerError, layer_for_proxy, numeric_fields, proxy_from_layer, raster_bands
+from .output_folders import display_path
 
 MEASURES = (("distance", "Distance to the features"), ("attribute", "A numeric field of the features"))
 
@@ -67,7 +68,7 @@ class ProxyFields(QGroupBox):
             proxy = node.proxy
             layer = layer_for_proxy(proxy, tree)
             self.layer_box.setLayer(layer)
-            self.file_label.setText(str(proxy.resolve(tree.base_dir)) if proxy else
+            self.file_label.setText(display_path(str(proxy.resolve(tree.base_dir))) if proxy else
                                     tr("Pick a layer here, or drag one from the layers panel onto "
                                        "the criterion."))
             raster = proxy is not None and not proxy.is_vector

@@ -1,9 +1,9 @@
-"""The bottom of the dock: where runs write, Quick look, Run, Cancel and the progress bar."""
+"""The bottom of the dock: where runs write (and why there), Quick look, Run, Cancel and the progress bar."""
 
 from __future__ import annotations
 
 from qgis.gui import QgsFileWidget
-from qgis.PyQt.QtCore import pyqtSignal
+from qgis.PyQt.QtCore import Qt, pyqtSignal
 from qgis.PyQt.QtWidgets import (
     QCheckBox,
     QGridLayout,
@@ -14,6 +14,7 @@ from qgis.PyQt.QtWidgets import (
 )
 
 from .common import icon, tr
+from .output_folders import DefaultFolder, display_path, is_temporary
 
 
 class RunBar(QWidget):
@@ -53,14 +54,19 @@ class RunBar(QWidget):
         self.progress.setTextVisible(True)
         self.status = QLabel()
         self.status.setWordWrap(True)
+        #: Where the next run writes, and why there; that quick looks are temporary.
+        self.destination = QLabel()
+        self.destination.setWordWrap(True)
+        self.destination.setTextInteractionFlags(Qt.TextSelectableByMouse)
         grid.addWidget(QLabel(tr("Results in")), 0, 0)
         grid.addWidget(self.folder_widget, 0, 1, 1, 3)
-        grid.addWidget(self.components_box, 1, 0, 1, 4)
-        grid.addWidget(self.quick_button, 2, 0)
-        grid.addWidget(self.run_button, 2, 1)
-        grid.addWidget(self.cancel_button, 2, 2)
-        grid.addWidget(self.progress, 2, 3)
-        grid.addWidget(self.status, 3, 0, 1, 4)
+        grid.addWidget(self.destination, 1, 0, 1, 4)
+        grid.addWidget(self.components_box, 2, 0, 1, 4)
+        grid.addWidget(self.quick_button, 3, 0)
+        grid.addWidget(self.run_button, 3, 1)
+        grid.addWidget(self.cancel_button, 3, 2)
+        grid.addWidget(self.progress, 3, 3)
+        grid.addWidget(self.status, 4, 0, 1, 4)
         grid.setColumnStretch(3, 1)
         self.quick_button.clicked.connect(lambda: self.run_requested.emit(True))
         self.run_button.clicked.connect(lambda: self.run_requested.emit(False))
@@ -83,12 +89,37 @@ class RunBar(QWidget):
         """Show the run's progress."""
         self.progress.setValue(int(percent))
 
-    def show_options(self, folder: str, placeholder: str, components: bool) -> None:
-        """Show the output folder (or the default as a placeholder) and the component option."""
+    def show_options(self, folder: str, default: DefaultFolder, components: bool) -> None:
+        """Show the chosen output folder (or the default), where the next run writes, and the option.
+
+        Parameters
+        ----------
+        folder : str
+            The folder the user chose ('' for none).
+        default : DefaultFolder
+            Where runs write when none is chosen, and why.
+        components : bool
+            Whether runs also write component rasters.
+        """
         self.folder_widget.blockSignals(True)
         self.folder_widget.setFilePath(folder)
-        self.folder_widget.lineEdit().setPlaceholderText(placeholder)
+        self.folder_widget.lineEdit().setPlaceholderText(display_path(default.path))
         self.folder_widget.blockSignals(False)
+        self.destination.setText(destination_text(folder, default))
         self.components_box.blockSignals(True)
         self.components_box.setChecked(components)
         self.components_box.blockSignals(False)
+
+
+def destination_text(folder: str, default: DefaultFolder) -> str:
+    """Say where the next run writes and why there, and that quick looks are temporary."""
+    if folder and is_temporary(folder):
+        where = tr("Each run writes a new folder in {folder} (your choice, a temporary folder: its "
+                   "results go when it is emptied).").format(folder=display_path(folder))
+    elif folder:
+        where = tr("Each run writes a new folder in {folder} (your choice).").format(
+            folder=display_path(folder))
+    else:
+        where = tr("Each run writes a new folder in {folder} (the default: {why}).").format(
+            folder=display_path(default.path), why=default.describe())
+    return where + " " + tr("Quick looks are temporary: they go when QGIS closes unless you keep them.")

@@ -2,9 +2,10 @@
 
 :class:`RunJob` writes a copy of the tree (absolute paths) to a file of its
 own, runs the algorithm in a ``QgsProcessingAlgRunnerTask`` and reports back
-in the main thread with a :class:`RunOutcome`. The engine writes nothing under
-the final names unless it succeeds; on failure or cancel the job also removes
-the run folder it made if it is empty, so nothing partial is left behind.
+in the main thread with a :class:`RunOutcome`. Its folder is made beforehand by
+:func:`run_folder`. The engine writes nothing under the final names unless it
+succeeds; on failure or cancel the job also removes the run folder if it is
+empty, so nothing partial is left behind.
 """
 
 from __future__ import annotations
@@ -21,6 +22,7 @@ from qgis.PyQt.QtCore import QObject, pyqtSignal
 
 from ..core.tree import Tree
 from .common import tr
+from .output_folders import new_folder
 
 ALGORITHM = "favour:evaluatetree"
 OUTPUT_NAME = "favourability.tif"
@@ -59,15 +61,23 @@ class _Feedback(QgsProcessingFeedback):
         super().reportError(error, fatalError)
 
 
+def _stamp() -> str:
+    """Return the local time as run folders name it: ``YYYYMMDD-HHMMSS``."""
+    return _dt.datetime.now().strftime("%Y%m%d-%H%M%S")
+
+
 def run_folder(base: str, quick: bool = False) -> str:
-    """Return a new folder name under ``base`` for one run: ``run-YYYYMMDD-HHMMSS`` (or ``quick-…``)."""
-    stamp = _dt.datetime.now().strftime("%Y%m%d-%H%M%S")
-    stem = os.path.join(base, f"{'quick' if quick else 'run'}-{stamp}")
-    folder, n = stem, 1
-    while os.path.exists(folder):
-        n += 1
-        folder = f"{stem}-{n}"
-    return folder
+    """Make and return a new folder under ``base`` for one run: ``run-YYYYMMDD-HHMMSS`` (or ``quick-…``).
+
+    The folder is made atomically (``-2``, ``-3`` … when the name is taken,
+    see :func:`~.output_folders.new_folder`), so two runs never share one.
+
+    Raises
+    ------
+    OSError
+        The folder cannot be made.
+    """
+    return new_folder(base, f"{'quick' if quick else 'run'}-{_stamp()}")
 
 
 class RunJob(QObject):
@@ -149,14 +159,14 @@ class RunJob(QObject):
                                       node_folder if self.component_rasters else None,
                                       results.get("LINEAGE"))
         else:
-            _remove_empty_folders(self.folder)
+            remove_empty_folders(self.folder)
             message = tr("cancelled; no output was written") if cancelled else \
                 "\n".join(self.feedback.errors) or tr("the evaluation failed")
             self.outcome = RunOutcome(False, cancelled, self.quick, self.folder, message=message)
         self.finished.emit(self.outcome)
 
 
-def _remove_empty_folders(folder: str) -> None:
+def remove_empty_folders(folder: str) -> None:
     """Remove ``folder`` and the folders under it that hold no file (never a file)."""
     if not os.path.isdir(folder):
         return

@@ -19,7 +19,7 @@ from qgis.core import (
     QgsProcessingLayerPostProcessorInterface,
     QgsProcessingUtils,
 )
-from qgis.PyQt.QtCore import QCoreApplication
+from qgis.PyQt.QtCore import QCoreApplication, QDir
 
 from ..core.errors import CancelledError, FavourError, FavourWarning
 from ..core.feedback import Feedback
@@ -59,22 +59,40 @@ class ProcessingFeedback(Feedback):
         return self.feedback.isCanceled()
 
 
-def temporary_folders() -> list[str]:
-    """Return the folders whose files vanish: QGIS's processing folder and the system's temporary one."""
-    folders = [QgsProcessingUtils.tempFolder(), tempfile.gettempdir()]
-    return [os.path.realpath(folder) for folder in folders if folder]
+def temporary_roots() -> list[str]:
+    """Return the folders whose contents do not outlast QGIS or the machine's next clean-up.
+
+    QGIS's processing temporary folder (it may be set apart from the
+    system's) and the system's temporary folder as Python and Qt see it.
+    """
+    roots = []
+    for folder in (QgsProcessingUtils.tempFolder(), tempfile.gettempdir(), QDir.tempPath()):
+        if folder:
+            real = os.path.realpath(folder)
+            if real not in roots:
+                roots.append(real)
+    return roots
 
 
-def in_temporary_folder(path: str) -> bool:
-    """Return True if ``path`` lies in a folder that QGIS or the system empties."""
+def is_temporary(path: str, roots: list[str] | None = None) -> bool:
+    """Return True if ``path`` lies in (or is) one of ``roots`` (default: :func:`temporary_roots`)."""
+    if not path:
+        return False
     real = os.path.realpath(path)
-    return any(os.path.commonpath([real, folder]) == folder for folder in temporary_folders())
+    for root in temporary_roots() if roots is None else roots:
+        root = os.path.realpath(root)
+        try:
+            if os.path.commonpath([real, root]) == root:
+                return True
+        except ValueError:  # different drives on Windows
+            continue
+    return False
 
 
 def note_temporary(feedback: QgsProcessingFeedback, *paths: str | None) -> None:
     """Warn, before the work, about each output that would land in a temporary folder."""
     for path in paths:
-        if path and in_temporary_folder(path):
+        if path and is_temporary(path):
             message = (f"{path} is in a temporary folder, which is emptied when QGIS closes; "
                        "to keep the result and its lineage, choose a file in a folder of your own")
             push = getattr(feedback, "pushWarning", None)  # QGIS >= 3.20
