@@ -5,6 +5,12 @@ A lineage is a plain dict written beside each output as
 with its size and SHA-256, the grid, each alignment step, the parameters,
 the nodata rules, the per-node statistics, warnings, the tool versions and
 the time. It is enough on its own to run the job again and compare cells.
+
+A lineage read back (:func:`read_lineage`) may have been damaged or edited by
+hand, so before any caller indexes it, the fields Favour's own code uses are
+checked against ``schema/lineage-v1.schema.json`` (the tree as a tree file
+is, a weights table against ``schema/weights-table-v1.schema.json``); what is
+wrong is named by field, e.g. ``inputs[2].files[0].sha256``.
 """
 
 from __future__ import annotations
@@ -18,11 +24,16 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import LineageError, OutputError
+from .errors import LineageError, OutputError, TreeFileError
+from .jsonio import LINEAGE_MAX_BYTES, json_path, read_json_file
+from .schema import load_validator
+from .tree import Tree
 
 FORMAT = "favour-lineage"
 VERSION = 1
 SUFFIX = ".lineage.json"
+SCHEMA_FILE = "lineage-v1.schema.json"
+TABLE_SCHEMA_FILE = "weights-table-v1.schema.json"
 CAUTION = ("Favourability ranks ground for exploration; it is not a resource estimate. "
            "Public reporting of exploration results follows the reporting code and "
            "qualified-person rules that apply locally.")
@@ -130,38 +141,84 @@ class NodeStatistics:
         return out
 
 
-def write_lineage(record: dict, output: str | os.PathLike) -> Path:
-    """Write ``record`` beside ``output`` atomically and return the lineage file's path."""
-    target = lineage_path(output)
-    tmp = target.with_name(f".{target.name}.partial")
+def lineage_text(record: dict, target: str | os.PathLike = "the lineage") -> str:
+    """Return the text of a lineage file: indented JSON, UTF-8, newline-terminated.
+
+    Raises
+    ------
+    OutputError
+        The record holds NaN or infinity: not JSON, and :func:`read_lineage`
+        would refuse the file.
+    """
     try:
-        tmp.write_text(json.dumps(record, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
-        os.replace(tmp, target)
-    except OSError as exc:
-        tmp.unlink(missing_ok=True)
-        raise OutputError(f"cannot write the lineage {target}: {exc.strerror or exc}") from None
-    return target
+        return json.dumps(record, indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+    except ValueError as exc:
+        raise OutputError(f"cannot write the lineage {target}: {exc}") from None
 
 
 def read_lineage(path: str | os.PathLike) -> dict:
-    """Read the lineage of an output raster (or a lineage file itself) and check its format."""
+    """Read the lineage of an output raster (or a lineage file itself) and check it.
+
+    The file is read as :func:`favour_plugin.core.jsonio.read_json_file`
+    reads user files (a regular file of at most
+    :data:`~favour_plugin.core.jsonio.LINEAGE_MAX_BYTES`, strict UTF-8 JSON),
+    then checked with :func:`check_record`.
+
+    Raises
+    ------
+    LineageError
+        No lineage, one that cannot be read, from a future version, or
+        damaged; the message names the file and, for a damaged record, each
+        field at fault.
+    """
     path = Path(path)
     target = path if path.name.endswith(SUFFIX) else lineage_path(path)
-    try:
-        record = json.loads(target.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise LineageError(f"no lineage found for {path}: {target} does not exist") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise LineageError(f"the lineage {target} cannot be read: {exc}") from None
-    except json.JSONDecodeError as exc:
-        raise LineageError(f"the lineage {target} is not valid JSON: {exc.msg} at line "
-                           f"{exc.lineno}") from None
-    if not isinstance(record, dict) or record.get("format") != FORMAT:
-        raise LineageError(f"{target} is not a Favour lineage record")
-    if not isinstance(record.get("version"), int) or record["version"] > VERSION:
-        raise LineageError(f"the lineage {target} is version {record.get('version')!r}; "
-                           f"this Favour reads version {VERSION}")
+    if not os.path.exists(target):
+        raise LineageError(f"no lineage found for {path}: {target} does not exist")
+    record = read_json_file(target, max_bytes=LINEAGE_MAX_BYTES, error=LineageError,
+                            what="the lineage", kind="lineage file")
+    check_record(record, f"the lineage {target}")
     return record
+
+
+def check_record(record, source: str = "the lineage record") -> None:
+    """Check that a lineage record holds what Favour's code reads from it, with the right types.
+
+    The format and version come first; then the fields that ``reproduce``,
+    :func:`changed_inputs`, the layer metadata and the weights-table reader
+    use are checked against ``schema/lineage-v1.schema.json``; the tree, if
+    any, must be a sound tree (as :meth:`favour_plugin.core.tree.Tree.from_dict`
+    checks a tree file); a weights table, if any, must match
+    ``schema/weights-table-v1.schema.json``.
+
+    Raises
+    ------
+    LineageError
+        The message starts with ``source`` and names each field at fault
+        (up to ten), e.g. ``inputs[2].files[0].sha256: must be of type string``.
+    """
+    if not isinstance(record, dict) or record.get("format") != FORMAT:
+        raise LineageError(f"{source} is not a Favour lineage record (it lacks "
+                           f"\"format\": \"{FORMAT}\")")
+    version = record.get("version")
+    if not isinstance(version, int) or isinstance(version, bool) or version > VERSION:
+        shown = version if isinstance(version, (int, float, str, type(None))) else type(version).__name__
+        raise LineageError(f"{source} is version {shown!r:.40}; this Favour reads version {VERSION}")
+    issues = [(json_path(i.path), i.message) for i in load_validator(SCHEMA_FILE).issues(record)]
+    table = record.get("table")
+    if isinstance(table, dict):
+        issues += [(json_path(("table", *i.path)), i.message)
+                   for i in load_validator(TABLE_SCHEMA_FILE).issues(table)]
+    if issues:
+        lines = [f"  - {where or 'the record'}: {message}" for where, message in issues[:10]]
+        if len(issues) > 10:
+            lines.append(f"  - ... and {len(issues) - 10} more")
+        raise LineageError(f"{source} is damaged; Favour cannot use it:\n" + "\n".join(lines))
+    if isinstance(record.get("tree"), dict):
+        try:
+            Tree.from_dict(record["tree"], base_dir=record.get("base_dir"))
+        except TreeFileError as exc:
+            raise LineageError(f"{source}: its tree cannot be used: {exc}") from None
 
 
 def changed_inputs(record: dict) -> list[dict]:

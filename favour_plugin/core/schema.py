@@ -27,7 +27,7 @@ _KEYWORDS = {
     "type", "required", "properties", "additionalProperties", "$ref", "anyOf", "allOf",
     "if", "then", "else", "enum", "const", "minimum", "maximum", "exclusiveMinimum",
     "exclusiveMaximum", "minLength", "minItems", "maxItems", "items", "minProperties",
-    "propertyNames", "pattern",
+    "propertyNames", "pattern", "prefixItems",
 }
 
 
@@ -53,17 +53,53 @@ def _is_type(value, kind: str) -> bool:
         return value is None
     if isinstance(value, bool):
         return False
-    if kind == "number":
-        return isinstance(value, (int, float)) and math.isfinite(value)
+    if kind == "number":  # an int is always finite; NaN and ±inf are no JSON numbers
+        return isinstance(value, int) or (isinstance(value, float) and math.isfinite(value))
     if kind == "integer":
         return isinstance(value, int) or (isinstance(value, float) and value.is_integer())
     raise ValueError(f"schema uses unknown type {kind!r}")
 
 
-def _describe(value) -> str:
-    """Return a short rendering of ``value`` for a message."""
-    text = json.dumps(value, ensure_ascii=False)
-    return text if len(text) <= 60 else text[:57] + "..."
+def describe(value, width: int = 60) -> str:
+    """Return a short JSON-like rendering of ``value`` for a message, at most ``width`` characters.
+
+    Bounded whatever the value: long strings and containers are cut before
+    they are rendered, deep ones are shown to three levels, and an integer too
+    long to print is described by its number of digits.
+    """
+    text = _render(value, 3, width)
+    return text if len(text) <= width else text[:width - 3] + "..."
+
+
+def _render(value, levels: int, width: int) -> str:
+    """Render ``value`` as compact JSON, cutting strings and containers past ``width``."""
+    if value is None or isinstance(value, bool):
+        return json.dumps(value)
+    if isinstance(value, int):
+        if value.bit_length() > 200:
+            return f"(an integer of about {int(value.bit_length() * math.log10(2)) + 1} digits)"
+        return str(value)
+    if isinstance(value, float):
+        return json.dumps(value)
+    if isinstance(value, str):
+        return json.dumps(value[:width + 1], ensure_ascii=False)
+    if isinstance(value, Mapping):
+        if levels == 0:
+            return "{...}" if value else "{}"
+        items = [f"{_render(str(k), 0, 20)}: {_render(v, levels - 1, width)}"
+                 for k, v in list(value.items())[:4]]
+        return "{" + ", ".join(items) + (", ..." if len(value) > 4 else "") + "}"
+    if isinstance(value, (list, tuple)):
+        if levels == 0:
+            return "[...]" if value else "[]"
+        items = [_render(v, levels - 1, width) for v in value[:8]]
+        return "[" + ", ".join(items) + (", ..." if len(value) > 8 else "") + "]"
+    return f"({type(value).__name__})"
+
+
+def _bound(value) -> str:
+    """Return a schema's bound for a message: ``1``, ``0.5``, ``1e+15``."""
+    return f"{value:g}" if isinstance(value, float) and abs(value) >= 1e6 else str(value)
 
 
 class Validator:
@@ -107,13 +143,13 @@ class Validator:
         if "type" in schema:
             kinds = schema["type"] if isinstance(schema["type"], list) else [schema["type"]]
             if not any(_is_type(value, k) for k in kinds):
-                yield SchemaIssue(path, f"must be of type {' or '.join(kinds)}, got {_describe(value)}")
+                yield SchemaIssue(path, f"must be of type {' or '.join(kinds)}, got {describe(value)}")
                 return
         if "const" in schema and value != schema["const"]:
-            yield SchemaIssue(path, f"must be {_describe(schema['const'])}, got {_describe(value)}")
+            yield SchemaIssue(path, f"must be {describe(schema['const'])}, got {describe(value)}")
         if "enum" in schema and value not in schema["enum"]:
-            allowed = ", ".join(_describe(v) for v in schema["enum"])
-            yield SchemaIssue(path, f"must be one of {allowed}; got {_describe(value)}")
+            allowed = ", ".join(describe(v) for v in schema["enum"])
+            yield SchemaIssue(path, f"must be one of {allowed}; got {describe(value)}")
         if _is_type(value, "number"):
             yield from self._numbers(value, schema, path)
         if isinstance(value, str):
@@ -121,7 +157,7 @@ class Validator:
                 yield SchemaIssue(path, "must not be empty" if schema["minLength"] == 1
                                   else f"must have at least {schema['minLength']} characters")
             if "pattern" in schema and not re.search(schema["pattern"], value):
-                yield SchemaIssue(path, f"{_describe(value)} does not match the pattern {schema['pattern']}")
+                yield SchemaIssue(path, f"{describe(value)} does not match the pattern {schema['pattern']}")
         if isinstance(value, list):
             yield from self._array(value, schema, path)
         if isinstance(value, Mapping):
@@ -137,23 +173,28 @@ class Validator:
                 yield from self._validate(value, schema[branch], path)
 
     def _numbers(self, value, schema, path):
+        shown = describe(value)
         if "minimum" in schema and value < schema["minimum"]:
-            yield SchemaIssue(path, f"must be at least {schema['minimum']}, got {value}")
+            yield SchemaIssue(path, f"must be at least {_bound(schema['minimum'])}, got {shown}")
         if "maximum" in schema and value > schema["maximum"]:
-            yield SchemaIssue(path, f"must be at most {schema['maximum']}, got {value}")
+            yield SchemaIssue(path, f"must be at most {_bound(schema['maximum'])}, got {shown}")
         if "exclusiveMinimum" in schema and value <= schema["exclusiveMinimum"]:
-            yield SchemaIssue(path, f"must be greater than {schema['exclusiveMinimum']}, got {value}")
+            yield SchemaIssue(path, f"must be greater than {_bound(schema['exclusiveMinimum'])}, "
+                                    f"got {shown}")
         if "exclusiveMaximum" in schema and value >= schema["exclusiveMaximum"]:
-            yield SchemaIssue(path, f"must be less than {schema['exclusiveMaximum']}, got {value}")
+            yield SchemaIssue(path, f"must be less than {_bound(schema['exclusiveMaximum'])}, got {shown}")
 
     def _array(self, value, schema, path):
         if "minItems" in schema and len(value) < schema["minItems"]:
             yield SchemaIssue(path, f"must have at least {schema['minItems']} items, got {len(value)}")
         if "maxItems" in schema and len(value) > schema["maxItems"]:
             yield SchemaIssue(path, f"must have at most {schema['maxItems']} items, got {len(value)}")
-        if "items" in schema:
-            for i, item in enumerate(value):
-                yield from self._validate(item, schema["items"], (*path, i))
+        prefix = schema.get("prefixItems", ())
+        for i, (item, sub) in enumerate(zip(value, prefix)):
+            yield from self._validate(item, sub, (*path, i))
+        if "items" in schema:  # as in draft 2020-12: the items after those prefixItems describe
+            for i in range(len(prefix), len(value)):
+                yield from self._validate(value[i], schema["items"], (*path, i))
 
     def _object(self, value, schema, path):
         for key in schema.get("required", ()):

@@ -11,11 +11,21 @@ caller (processing, dock, command line, tests) evaluates a tree block by block.
 The file format (``"format": "favour-tree", "version": 1``) is JSON, checked
 against ``schema/tree-v1.schema.json`` on load. Fields this module does not
 know are kept and written back unchanged.
+
+Whatever a user hands it, reading a tree ends in a tree or a
+:class:`~favour_plugin.core.errors.TreeFileError` whose message names the
+node: the file is read by :mod:`favour_plugin.core.jsonio` (size, encoding,
+strict JSON, nesting), then the tree's shape is checked without recursion
+(at most :data:`MAX_DEPTH` levels and :data:`MAX_NODES` nodes) before the
+schema validator and the node builders, which recurse, see it. Numbers that
+pass the schema but no computation can use (beyond ±:data:`MAX_MAGNITUDE`)
+are listed by :meth:`Tree.problems` at their node.
 """
 
 from __future__ import annotations
 
 import copy
+import hashlib
 import json
 import math
 import os
@@ -27,9 +37,10 @@ from pathlib import Path
 import numpy as np
 
 from .errors import FavourError, OutputError, ParameterError, TreeFileError
+from .jsonio import MAX_NESTING, TREE_MAX_BYTES, lone_surrogate, parse_json_text, read_json_file, too_deep
 from .membership import Membership, parse_membership
 from .overlay import Operator, parse_operator
-from .schema import load_validator
+from .schema import describe, load_validator
 
 FORMAT = "favour-tree"
 VERSION = 1
@@ -41,6 +52,24 @@ _NODE_KEYS = {"name", "component", "rationale", "weight", "save_output", "operat
               "children", "proxy", "membership"}
 _PROXY_KEYS = {"path", "band", "layer", "measure", "field", "resampling"}
 _TREE_KEYS = {"format", "version", "name", "description", "grid", "root"}
+
+#: Deepest tree read, in levels of nodes (the root is level 1). A mineral-systems
+#: model is about 5 deep: root, component, criterion, sub-criterion, proxy
+#: (common practice, no source).
+MAX_DEPTH = 32
+
+#: Most nodes a tree may hold; a model a person can argue for has tens
+#: (common practice, no source).
+MAX_NODES = 1000
+
+#: Largest magnitude of a number in a node's operator, membership, weight or
+#: band, and in the grid: far beyond any map coordinate, distance or value,
+#: yet small enough that sums and products of such numbers stay finite
+#: (common practice, no source).
+MAX_MAGNITUDE = 1e15
+
+#: Largest raster side in cells (GDAL's raster sizes and band numbers are C ints).
+MAX_CELLS_PER_SIDE = 2**31 - 1
 
 
 @dataclass
@@ -75,7 +104,7 @@ class Proxy:
 
     @classmethod
     def from_dict(cls, doc: Mapping) -> Proxy:
-        """Build a proxy from its tree-file form (already schema-checked)."""
+        """Build a proxy from its tree-file form (already checked by the tree's reader)."""
         return cls(path=doc["path"], band=doc.get("band"), layer=doc.get("layer"),
                    measure=doc.get("measure"), field=doc.get("field"),
                    resampling=doc.get("resampling"),
@@ -141,7 +170,12 @@ class Node:
 
     @classmethod
     def from_dict(cls, doc: Mapping) -> Node:
-        """Build a node and its subtree from the tree-file form (already schema-checked)."""
+        """Build a node and its subtree from the tree-file form.
+
+        The document must already be checked (:meth:`Tree.from_dict` checks
+        its shape and schema, :meth:`Tree.from_draft` its shape and types):
+        this recurses once per level and indexes fields without checking them.
+        """
         return cls(
             name=doc["name"],
             operator=copy.deepcopy(doc.get("operator")),
@@ -215,23 +249,29 @@ class Tree:
     def from_dict(cls, doc, base_dir: Path | str | None = None) -> Tree:
         """Check a parsed tree document and build the tree.
 
+        The document's shape (levels, node count, nesting) is checked first,
+        without recursion, then the schema, then each node's problems.
+
         Raises
         ------
         TreeFileError
-            Wrong format, a version newer than this program reads, a schema
-            violation, or a node problem (bad parameter, duplicate name); the
-            message lists each problem with its node path.
+            Wrong format, a version newer than this program reads, a tree
+            deeper than :data:`MAX_DEPTH` levels or with more than
+            :data:`MAX_NODES` nodes, a schema violation, or a node problem
+            (bad parameter, duplicate name); the message names each problem
+            with its node path.
         """
         if not isinstance(doc, Mapping):
             raise TreeFileError(f"a tree file holds a JSON object, not {type(doc).__name__}")
         if doc.get("format") != FORMAT:
-            raise TreeFileError(f"'format' must be {FORMAT!r}, got {doc.get('format')!r}; "
+            raise TreeFileError(f"'format' must be {FORMAT!r}, got {_brief(doc.get('format'))}; "
                                 "this is not a Favour tree file")
         version = doc.get("version")
         if isinstance(version, int) and not isinstance(version, bool) and version > VERSION:
             raise TreeFileError(
-                f"tree file version {version} is newer than this Favour reads (version {VERSION}); "
-                "update Favour to open it")
+                f"tree file version {_brief(version)} is newer than this Favour reads "
+                f"(version {VERSION}); update Favour to open it")
+        _check_shape(doc)
         issues = load_validator(SCHEMA_FILE).issues(doc)
         if issues:
             problems = []
@@ -251,26 +291,36 @@ class Tree:
 
     @classmethod
     def from_json(cls, text: str, base_dir: Path | str | None = None, source: str = "tree") -> Tree:
-        """Parse JSON text and build the tree; bad JSON names the line and column."""
-        try:
-            doc = json.loads(text)
-        except json.JSONDecodeError as exc:
-            raise TreeFileError(
-                f"{source} is not valid JSON: {exc.msg} at line {exc.lineno}, column {exc.colno}"
-            ) from None
+        """Parse JSON text and build the tree; bad JSON names the line and column.
+
+        The text is read as :func:`favour_plugin.core.jsonio.parse_json_text`
+        reads it: at most :data:`~favour_plugin.core.jsonio.TREE_MAX_BYTES`,
+        strict JSON (no NaN or Infinity), nesting limited.
+        """
+        doc = parse_json_text(text, error=TreeFileError, source=source, max_bytes=TREE_MAX_BYTES)
         return cls.from_dict(doc, base_dir)
 
     @classmethod
     def load(cls, path: Path | str) -> Tree:
-        """Read a tree file; relative proxy paths are taken from its folder."""
+        """Read a tree file; relative proxy paths are taken from its folder.
+
+        A path that is not a regular file, or a file over
+        :data:`~favour_plugin.core.jsonio.TREE_MAX_BYTES`, is refused before
+        it is read.
+
+        Raises
+        ------
+        TreeFileError
+            The file is missing, not a plain file, too large, not UTF-8, not
+            JSON, or not a sound tree; the message names the file or the node.
+        """
         path = Path(path)
+        doc = read_json_file(path, max_bytes=TREE_MAX_BYTES, error=TreeFileError, what="tree file")
         try:
-            text = path.read_text(encoding="utf-8")
-        except FileNotFoundError:
-            raise TreeFileError(f"tree file {path} does not exist") from None
-        except (OSError, UnicodeDecodeError) as exc:
-            raise TreeFileError(f"tree file {path} cannot be read: {exc}") from None
-        return cls.from_json(text, base_dir=path.resolve().parent, source=f"tree file {path}")
+            base_dir = path.resolve().parent
+        except (OSError, RuntimeError) as exc:  # a symlink loop, say
+            raise TreeFileError(f"tree file {path}: its folder cannot be resolved: {exc}") from None
+        return cls.from_dict(doc, base_dir=base_dir)
 
     def to_dict(self) -> dict:
         """Return the tree-file document (paths as stored)."""
@@ -346,13 +396,29 @@ class Tree:
     def problems(self) -> list[Problem]:
         """List every problem of the model, each with the path of the node it belongs to.
 
-        Checks structure (leaf or combining node, unique sibling names),
-        operators, memberships, weights and proxy fields. File existence and
-        grids are checked by the raster layer, which can open files.
+        Checks structure (leaf or combining node, unique sibling names, at most
+        :data:`MAX_DEPTH` levels and :data:`MAX_NODES` nodes), operators,
+        memberships, weights and proxy fields, and that every number there and
+        in the grid is finite and within ±:data:`MAX_MAGNITUDE`. File
+        existence and grids against the data are checked by the raster layer,
+        which can open files; problems of the grid have an empty node path.
         """
-        found: list[Problem] = []
-        for path, node in self.walk():
+        found: list[Problem] = [Problem("", message) for message in _grid_problems(self.grid)]
+        count = 0
+        stack = [(self.root.name, self.root, 1)]
+        while stack:
+            path, node, level = stack.pop()
+            count += 1
             found.extend(Problem(path, message) for message in _node_problems(node))
+            if level > MAX_DEPTH:
+                found.append(Problem(path, f"lies {level} levels deep; a tree has at most {MAX_DEPTH} "
+                                           "levels"))
+                continue  # one mark per branch is enough
+            for child in reversed(node.children):
+                stack.append((path + PATH_SEPARATOR + str(child.name), child, level + 1))
+        if count > MAX_NODES:
+            found.append(Problem(self.root.name, f"the tree has {count} nodes; a tree has at most "
+                                                 f"{MAX_NODES}"))
         return found
 
     def compile(self) -> EvaluationPlan:
@@ -390,25 +456,44 @@ class Tree:
         """Build a tree from its tree-file form without checking schema or problems.
 
         For a half-finished model an editor stored (in a QGIS project, say):
-        it may still lack layers or memberships. Use :meth:`from_dict` for
-        tree files.
+        it may still lack layers or memberships, which :meth:`problems` lists.
+        Use :meth:`from_dict` for tree files. The shape limits of
+        :meth:`from_dict` apply, and every field Favour uses must have its
+        type (a name is text, children a list of nodes, a proxy an object with
+        a path...); the contents of operators and memberships are left to
+        :meth:`problems`.
 
         Raises
         ------
         TreeFileError
             The document is not a tree document at all (no root object, a node
-            without a name, a proxy without a path).
+            without a name, a proxy without a path), a field has the wrong
+            type, or the tree is too deep or too large; the message names the
+            node and the field.
         """
         if not isinstance(doc, Mapping) or not isinstance(doc.get("root"), Mapping):
             raise TreeFileError("a stored tree must be a JSON object with a 'root' object")
-        try:
-            root = Node.from_dict(doc["root"])
-        except (KeyError, TypeError, AttributeError) as exc:
-            raise TreeFileError(f"the stored tree cannot be read: a node or proxy lacks {exc}") from None
+        _check_shape(doc)
+        _check_draft_types(doc)
+        root = Node.from_dict(doc["root"])
         return cls(root=root, name=doc.get("name", ""), description=doc.get("description", ""),
                    grid=copy.deepcopy(doc.get("grid")),
                    base_dir=Path(base_dir) if base_dir is not None else None,
                    extra={k: copy.deepcopy(v) for k, v in doc.items() if k not in _TREE_KEYS})
+
+    @classmethod
+    def from_draft_json(cls, text: str, base_dir: Path | str | None = None,
+                        source: str = "the stored tree") -> Tree:
+        """Parse JSON text (as :meth:`from_json` does) and build a draft tree with :meth:`from_draft`.
+
+        Raises
+        ------
+        TreeFileError
+            The text is not strict JSON within the limits of
+            :mod:`favour_plugin.core.jsonio`, or :meth:`from_draft` refuses it.
+        """
+        doc = parse_json_text(text, error=TreeFileError, source=source, max_bytes=TREE_MAX_BYTES)
+        return cls.from_draft(doc, base_dir)
 
     def parent_of(self, path: str) -> Node:
         """Return the parent of the node at ``path``; KeyError for the root or an unknown path."""
@@ -567,6 +652,57 @@ def _relative(path: Path, base: Path) -> str:
         return str(path)
 
 
+def _usable_number(value) -> float | None:
+    """Return ``value`` as a float if it is a finite number within ±MAX_MAGNITUDE, else None."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return None
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return float(value) if abs(value) <= MAX_MAGNITUDE else None
+
+
+def _number_problems(spec, where: str, class_maps: tuple[str, ...] = ()) -> Iterator[str]:
+    """Yield a message for each number in ``spec`` that is not finite or beyond ±MAX_MAGNITUDE.
+
+    ``class_maps`` names the entries of ``spec`` whose keys are class codes
+    (numbers written as text), which are checked too. At most five messages.
+    """
+    shown = 0
+    stack = [(spec, where)]
+    while stack and shown < 5:
+        value, at = stack.pop()
+        if isinstance(value, Mapping):
+            if at.count(".") == 1 and at.rpartition(".")[2] in class_maps:
+                for key in value:
+                    try:
+                        code = float(key)
+                    except (TypeError, ValueError, OverflowError):
+                        continue  # not a number: the membership names it
+                    if _usable_number(code) is None:
+                        shown += 1
+                        yield (f"{at}: the class code {_brief(key)} is not a finite number within "
+                               f"±{MAX_MAGNITUDE:g}")
+            stack.extend((item, f"{at}.{key}") for key, item in reversed(list(value.items())))
+        elif isinstance(value, (list, tuple)):
+            stack.extend((item, f"{at}[{i}]") for i, item in reversed(list(enumerate(value))))
+        elif isinstance(value, (int, float)) and not isinstance(value, bool) \
+                and _usable_number(value) is None:
+            shown += 1
+            yield (f"{at} is {_brief(value)}; numbers in a tree must be finite and within "
+                   f"±{MAX_MAGNITUDE:g}")
+
+
+def _parse_problem(parse, spec, what: str) -> tuple[object, str | None]:
+    """Return ``(parse(spec), None)``, or ``(None, message)`` when ``parse`` refuses ``spec``."""
+    try:
+        return parse(spec), None
+    except ParameterError as exc:
+        return None, _clip(str(exc), 500)
+    except (TypeError, ValueError, KeyError, IndexError, AttributeError, OverflowError) as exc:
+        # The parsers expect the tree-file form; a draft may hold anything.
+        return None, f"the {what} cannot be read: {type(exc).__name__}: {_clip(str(exc), 200)}"
+
+
 def _node_problems(node: Node) -> Iterator[str]:
     """Yield the messages for what is wrong with one node (not its subtree)."""
     if node.children and (node.proxy is not None or node.membership is not None):
@@ -575,38 +711,49 @@ def _node_problems(node: Node) -> Iterator[str]:
         if node.operator is None:
             yield "has children but no operator"
         else:
-            try:
-                op = parse_operator(node.operator)
-            except ParameterError as exc:
-                yield str(exc)
-            else:
-                if op.type == "weighted_mean" and node.children:
-                    if sum(child.weight for child in node.children) <= 0:
-                        yield "operator 'weighted_mean' needs at least one child with a positive weight"
+            unusable = list(_number_problems(node.operator, "operator"))
+            yield from unusable
+            op, message = (None, None) if unusable else _parse_problem(parse_operator, node.operator,
+                                                                       "operator")
+            if message:
+                yield message
+            if op is not None and op.type == "weighted_mean" and node.children:
+                weights = [_usable_number(child.weight) for child in node.children]
+                # A weight that is no usable number is marked at its own node.
+                if None not in weights and math.fsum(max(w, 0.0) for w in weights) <= 0:
+                    yield "operator 'weighted_mean' needs at least one child with a positive weight"
         if not node.children:
             yield "has an operator but no children"
         names = [child.name for child in node.children]
-        for name in sorted({n for n in names if names.count(n) > 1}):
-            yield f"two children are named {name!r}; sibling names must differ"
+        for name in sorted({n for n in names if names.count(n) > 1}, key=str):
+            yield f"two children are named {_brief(name)}; sibling names must differ"
     else:
         if node.proxy is None:
             yield "a leaf needs a proxy layer"
         if node.membership is None:
             yield "a leaf needs a membership function"
+        elif isinstance(node.membership, Mapping) and not isinstance(node.membership.get("type"), str):
+            yield (f"membership.type must name a membership function, "
+                   f"got {_brief(node.membership.get('type'))}")
         else:
-            try:
-                parse_membership(node.membership)
-            except ParameterError as exc:
-                yield str(exc)
+            unusable = list(_number_problems(node.membership, "membership", ("scores", "weights")))
+            yield from unusable
+            message = None if unusable else _parse_problem(parse_membership, node.membership,
+                                                           "membership")[1]
+            if message:
+                yield message
         if node.proxy is not None:
             yield from _proxy_problems(node.proxy)
     if node.component is not None and node.component not in COMPONENTS:
-        yield f"component must be one of {', '.join(COMPONENTS)}, got {node.component!r}"
+        yield f"component must be one of {', '.join(COMPONENTS)}, got {_brief(node.component)}"
     weight = node.weight
-    if isinstance(weight, bool) or not isinstance(weight, (int, float)) or not math.isfinite(weight) \
-            or weight < 0:
-        yield f"weight must be a finite number >= 0, got {weight!r}"
-    if not node.name or PATH_SEPARATOR.strip() in node.name:
+    if isinstance(weight, bool) or not isinstance(weight, (int, float)) \
+            or (isinstance(weight, float) and not math.isfinite(weight)) or weight < 0:
+        yield f"weight must be a finite number >= 0, got {_brief(weight)}"
+    elif weight > MAX_MAGNITUDE:
+        yield (f"weight must be at most {MAX_MAGNITUDE:g}, got {_brief(weight)}; a weight only "
+               "counts relative to its siblings'")
+    if not isinstance(node.name, str) or not node.name or PATH_SEPARATOR.strip() in node.name:
         yield f"a node name must be non-empty and must not contain '{PATH_SEPARATOR.strip()}'"
 
 
@@ -615,12 +762,33 @@ def _proxy_problems(proxy: Proxy) -> Iterator[str]:
     if not proxy.path:
         yield "the proxy has no layer path"
     if proxy.measure not in (None, "distance", "attribute"):
-        yield f"proxy measure must be 'distance' or 'attribute', got {proxy.measure!r}"
+        yield f"proxy measure must be 'distance' or 'attribute', got {_brief(proxy.measure)}"
     if proxy.measure == "attribute" and not proxy.field:
         yield "proxy measure 'attribute' needs a 'field' to burn into the grid"
     if proxy.band is not None and (isinstance(proxy.band, bool) or not isinstance(proxy.band, int)
-                                   or proxy.band < 1):
-        yield f"proxy band must be a whole number from 1, got {proxy.band!r}"
+                                   or not 1 <= proxy.band <= MAX_CELLS_PER_SIDE):
+        yield f"proxy band must be a whole number from 1 to {MAX_CELLS_PER_SIDE}, got {_brief(proxy.band)}"
+
+
+def _grid_problems(grid) -> Iterator[str]:
+    """Yield the messages for numbers of the tree's grid that no raster can use."""
+    if not isinstance(grid, Mapping):
+        return
+    yield from _number_problems({k: grid[k] for k in ("extent", "cell_size", "band") if k in grid}, "grid")
+    band = grid.get("band")
+    if isinstance(band, int) and not isinstance(band, bool) and band > MAX_CELLS_PER_SIDE:
+        yield f"grid: band must be at most {MAX_CELLS_PER_SIDE}, got {_brief(band)}"
+    extent, cell = grid.get("extent"), _usable_number(grid.get("cell_size"))
+    if not isinstance(extent, list) or len(extent) != 4 or cell is None or cell <= 0:
+        return
+    corners = [_usable_number(v) for v in extent]
+    if None in corners:
+        return
+    xmin, ymin, xmax, ymax = corners
+    for axis, span in (("columns", xmax - xmin), ("rows", ymax - ymin)):
+        if span / cell > MAX_CELLS_PER_SIDE:
+            yield (f"grid: the extent spans {span / cell:.3g} {axis} of cell_size {cell:g}; "
+                   f"a raster has at most {MAX_CELLS_PER_SIDE} {axis}")
 
 
 def _locate(doc, json_path: tuple) -> tuple[str, str]:
@@ -650,10 +818,142 @@ def _locate(doc, json_path: tuple) -> tuple[str, str]:
 
 
 def _node_label(node, fallback: str) -> str:
-    """Return a node's name for messages, or ``fallback`` when it has none."""
+    """Return a node's name for messages, or ``fallback`` when it has none.
+
+    A name that is not valid text (a lone surrogate) is shown with the bad
+    character escaped, so the message itself can be printed.
+    """
     if isinstance(node, Mapping) and isinstance(node.get("name"), str) and node["name"]:
-        return node["name"]
+        name = node["name"]
+        return name if name.isascii() else name.encode("utf-8", "backslashreplace").decode("utf-8")
     return f"({fallback})"
+
+
+def _clip(text: str, width: int = 40) -> str:
+    """Return ``text`` cut to ``width`` characters with an ellipsis."""
+    return text if len(text) <= width else text[:width - 1] + "…"
+
+
+def _brief(value) -> str:
+    """Return a short rendering of a value for a message: repr for plain scalars, else bounded."""
+    if value is None or isinstance(value, (bool, float)) or (isinstance(value, int)
+                                                             and value.bit_length() <= 200):
+        return repr(value)
+    if isinstance(value, str):
+        return repr(_clip(value, 60))
+    return describe(value)
+
+
+def _short_path(names) -> str:
+    """Join node names into a path for a message, abbreviating a long one and long names."""
+    names = [_clip(name) for name in names]
+    if len(names) > 10:
+        names = [*names[:6], f"… {len(names) - 8} more …", *names[-2:]]
+    return PATH_SEPARATOR.join(names)
+
+
+def _check_shape(doc: Mapping) -> None:
+    """Refuse a tree too deep, too large, nested too deeply or holding non-text strings.
+
+    Runs before anything that recurses over the document (the schema
+    validator, :meth:`Node.from_dict`, ``copy.deepcopy``, ``json.dumps``) and
+    itself uses no recursion. Messages name the node where the limit is crossed.
+    """
+    root = doc.get("root")
+    if isinstance(root, Mapping):
+        count = 0
+        stack = [(root, (_node_label(root, "root"),))]
+        while stack:
+            node, names = stack.pop()
+            count += 1
+            if len(names) > MAX_DEPTH:
+                raise TreeFileError(
+                    f"{_short_path(names)}: the tree is more than {MAX_DEPTH} levels deep here; "
+                    f"Favour reads trees of at most {MAX_DEPTH} levels (a mineral-systems model "
+                    "is about 5)")
+            children = node.get("children") if isinstance(node, Mapping) else None
+            if isinstance(children, (list, tuple)):
+                if count + len(stack) + len(children) > MAX_NODES:
+                    raise TreeFileError(
+                        f"{_short_path(names)}: with its {len(children)} children the tree has more "
+                        f"than {MAX_NODES} nodes; Favour reads trees of at most {MAX_NODES} nodes")
+                stack.extend((child, (*names, _node_label(child, f"child {i}")))
+                             for i, child in reversed(list(enumerate(children))))
+    for finder, problem in ((too_deep, f"arrays and objects nest more than {MAX_NESTING} levels "
+                                       f"deep here; Favour reads at most {MAX_NESTING}"),
+                            (lone_surrogate, "holds a lone UTF-16 surrogate (half of a character), "
+                                             "which is not text")):
+        path = finder(doc, MAX_NESTING)
+        if path is not None:
+            node, where = _locate(doc, path)
+            where = _clip(where or "the document", 80)
+            raise TreeFileError(f"{_short_path(node.split(PATH_SEPARATOR)) if node else 'tree'}: "
+                                f"{where}: {problem}")
+
+
+#: Types of the fields of a draft node, a proxy and the tree that Favour's code relies on.
+_NUMBER = "number"
+_DRAFT_TREE_TYPES = {"name": (str,), "description": (str,), "grid": (Mapping, type(None))}
+_DRAFT_NODE_TYPES = {"name": (str,), "component": (str, type(None)), "rationale": (str,),
+                     "weight": _NUMBER, "save_output": (bool,), "operator": (Mapping, type(None)),
+                     "membership": (Mapping, type(None)), "children": (list,), "proxy": (Mapping,)}
+_DRAFT_PROXY_TYPES = {"path": (str,), "band": (int, type(None)), "layer": (str, type(None)),
+                      "measure": (str, type(None)), "field": (str, type(None)),
+                      "resampling": (str, type(None))}
+_DRAFT_GRID_TYPES = {"reference": (str,), "crs": (str,), "extent": (list,), "cell_size": _NUMBER,
+                     "band": (int,)}
+_TYPE_NAMES = {str: "text", type(None): "null", Mapping: "an object", list: "a list",
+               bool: "true or false", int: "a whole number"}
+
+
+def _wrong_type(value, kinds) -> str | None:
+    """Return what ``value`` should be if it is not of ``kinds``, else None."""
+    if kinds == _NUMBER:
+        if isinstance(value, (int, float)) and not isinstance(value, bool):
+            return None
+        return "a number"
+    if isinstance(value, bool) and bool not in kinds:
+        return " or ".join(_TYPE_NAMES[k] for k in kinds)
+    if isinstance(value, kinds):
+        return None
+    return " or ".join(_TYPE_NAMES[k] for k in kinds)
+
+
+def _check_draft_types(doc: Mapping) -> None:
+    """Refuse, naming the node and the field, a draft whose fields have types Favour cannot use."""
+    def refuse(where: str, field: str, value, expected: str) -> None:
+        raise TreeFileError(f"the stored tree cannot be read: {where}: '{field}' must be {expected}, "
+                            f"got {_brief(value)}")
+
+    for key, kinds in _DRAFT_TREE_TYPES.items():
+        if key in doc and (expected := _wrong_type(doc[key], kinds)):
+            refuse("tree", key, doc[key], expected)
+    grid = doc.get("grid")
+    if isinstance(grid, Mapping):
+        for key, kinds in _DRAFT_GRID_TYPES.items():
+            if key in grid and (expected := _wrong_type(grid[key], kinds)):
+                refuse("tree", f"grid.{key}", grid[key], expected)
+    stack = [(doc["root"], (_node_label(doc["root"], "root"),))]
+    while stack:
+        node, names = stack.pop()
+        where = _short_path(names)
+        if not isinstance(node, Mapping):
+            raise TreeFileError(f"the stored tree cannot be read: {where}: a node must be an object, "
+                                f"got {_brief(node)}")
+        if "name" not in node:
+            raise TreeFileError(f"the stored tree cannot be read: {where}: the node lacks a 'name'")
+        for key, kinds in _DRAFT_NODE_TYPES.items():
+            if key in node and (expected := _wrong_type(node[key], kinds)):
+                refuse(where, key, node[key], expected)
+        proxy = node.get("proxy")
+        if isinstance(proxy, Mapping):
+            if "path" not in proxy:
+                raise TreeFileError(f"the stored tree cannot be read: {where}: the proxy lacks a 'path'")
+            for key, kinds in _DRAFT_PROXY_TYPES.items():
+                if key in proxy and (expected := _wrong_type(proxy[key], kinds)):
+                    refuse(where, f"proxy.{key}", proxy[key], expected)
+        stack.extend((child, (*names, _node_label(child, f"child {i}")))
+                     for i, child in reversed(list(enumerate(node.get("children", ())))))
 
 
 def _join_problems(headline: str, problems: list[Problem]) -> str:
@@ -671,21 +971,32 @@ def _join_problems(headline: str, problems: list[Problem]) -> str:
 
 @dataclass(frozen=True)
 class Leaf:
-    """A compiled leaf: its path, proxy and validated membership."""
+    """A compiled leaf: its path, proxy and validated membership.
+
+    ``signature`` identifies what the leaf computes (its path, which names the
+    values it reads, its proxy and its membership): two plans whose leaves
+    share a signature compute the same μ from the same block.
+    """
 
     path: str
     proxy: Proxy
     membership: Membership
+    signature: str = ""
 
 
 @dataclass(frozen=True)
 class _Step:
-    """A compiled combining node: its path, operator, children paths and weights."""
+    """A compiled combining node: its path, operator, children paths and weights.
+
+    ``signature`` identifies what the node computes: its operator, its
+    children's signatures and their weights.
+    """
 
     path: str
     operator: Operator
     children: tuple[str, ...]
     weights: tuple[float, ...]
+    signature: str = ""
 
 
 class EvaluationPlan:
@@ -706,21 +1017,26 @@ class EvaluationPlan:
         self.saved: list[str] = []
         self._compile(tree.root, tree.root.name)
 
-    def _compile(self, node: Node, path: str) -> None:
+    def _compile(self, node: Node, path: str) -> str:
+        """Compile ``node`` and its subtree; return the node's signature."""
         if node.component is not None:
             self.components.append(path)
         if node.save_output or node.component is not None:
             self.saved.append(path)
         if node.is_leaf:
-            self.leaves.append(Leaf(path, node.proxy, parse_membership(node.membership)))
-            return
-        child_paths = []
+            signature = _signature(["leaf", path, node.proxy.to_dict(), node.membership])
+            self.leaves.append(Leaf(path, node.proxy, parse_membership(node.membership), signature))
+            return signature
+        child_paths, child_signatures = [], []
         for child in node.children:
             child_path = path + PATH_SEPARATOR + child.name
-            self._compile(child, child_path)
+            child_signatures.append(self._compile(child, child_path))
             child_paths.append(child_path)
-        self.steps.append(_Step(path, parse_operator(node.operator), tuple(child_paths),
-                                tuple(float(c.weight) for c in node.children)))
+        weights = tuple(float(c.weight) for c in node.children)
+        signature = _signature(["node", node.operator, child_signatures, weights])
+        self.steps.append(_Step(path, parse_operator(node.operator), tuple(child_paths), weights,
+                                signature))
+        return signature
 
     @property
     def node_paths(self) -> list[str]:
@@ -728,7 +1044,8 @@ class EvaluationPlan:
         return [leaf.path for leaf in self.leaves] + [step.path for step in self.steps]
 
     def evaluate_block(self, values: Mapping[str, np.ndarray],
-                       keep: tuple[str, ...] | list[str] = ()) -> dict[str, np.ndarray]:
+                       keep: tuple[str, ...] | list[str] = (),
+                       cache: dict | None = None) -> dict[str, np.ndarray]:
         """Evaluate the tree on one block of proxy values.
 
         Parameters
@@ -738,6 +1055,13 @@ class EvaluationPlan:
             the same shape.
         keep : sequence of str
             Node paths whose μ to return besides the root's.
+        cache : dict, optional
+            Results by node signature, shared by several plans evaluated on
+            the same ``values`` (the realisations of a Monte Carlo): a leaf or
+            subtree that another plan already computed with the same
+            parameters is taken from it instead of computed again. Results
+            are never modified in place, so sharing them is safe. The caller
+            makes a new cache for each block.
 
         Returns
         -------
@@ -753,14 +1077,30 @@ class EvaluationPlan:
         wanted = set(keep) | {self.root_path}
         results: dict[str, np.ndarray] = {}
         for leaf in self.leaves:
+            if cache is not None and leaf.signature in cache:
+                results[leaf.path] = cache[leaf.signature]
+                continue
             try:
                 results[leaf.path] = leaf.membership(values[leaf.path])
             except FavourError as exc:
                 raise type(exc)(f"{leaf.path}: {exc}") from None
+            if cache is not None:
+                cache[leaf.signature] = results[leaf.path]
         for step in self.steps:
-            results[step.path] = step.operator.combine(
-                [results[c] for c in step.children], step.weights)
+            if cache is not None and step.signature in cache:
+                results[step.path] = cache[step.signature]
+            else:
+                results[step.path] = step.operator.combine(
+                    [results[c] for c in step.children], step.weights)
+                if cache is not None:
+                    cache[step.signature] = results[step.path]
             for child in step.children:
                 if child not in wanted:
                     del results[child]
         return {path: results[path] for path in results if path in wanted}
+
+
+def _signature(parts) -> str:
+    """Return a short, stable identity of a node's computation (SHA-1 of canonical JSON)."""
+    text = json.dumps(parts, sort_keys=True, separators=(",", ":"), default=str)
+    return hashlib.sha1(text.encode("utf-8")).hexdigest()

@@ -100,10 +100,15 @@ from scipy import special
 
 from .errors import GridMismatchError, InputError, NodataWarning, ParameterError, SmallSampleWarning
 from .feedback import Feedback
+from .jsonio import check_nesting, json_path
+from .schema import load_validator
 
 KINDS = ("binary", "categorical", "ascending", "descending")
 SMALL_COUNT_RULES = (None, "haldane")
 S_P_RULES = ("delta", "relative")
+
+#: Schema of a weights table as :meth:`WeightsTable.as_dict` writes it.
+TABLE_SCHEMA_FILE = "weights-table-v1.schema.json"
 
 #: Default studentised-contrast level for a significant pattern: 1.96, the
 #: two-sided 5 % point of the standard normal (common rule of thumb, no source).
@@ -589,21 +594,35 @@ class WeightsTable:
 
     @classmethod
     def from_dict(cls, doc: Mapping) -> WeightsTable:
-        """Rebuild a table from :meth:`as_dict`'s output (e.g. read back from a lineage record)."""
-        try:
-            kind = doc["kind"]
-            if kind not in KINDS:
-                raise ParameterError(f"weights table kind must be one of {', '.join(KINDS)}, got {kind!r}")
-            return cls(name=str(doc["name"]), kind=kind, rows=[dict(r) for r in doc["rows"]],
-                       unit_cell_km2=float(doc["unit_cell_km2"]),
-                       cell_area_km2=float(doc["cell_area_km2"]), small_count=doc.get("small_count"),
-                       area_units=float(doc["area_units"]), deposits=int(doc["deposits"]),
-                       nodata_area_units=float(doc["nodata_area_units"]),
-                       nodata_deposits=int(doc["nodata_deposits"]),
-                       merged_deposits=int(doc["merged_deposits"]),
-                       outside_deposits=int(doc["outside_deposits"]))
-        except (KeyError, TypeError, ValueError) as exc:
-            raise ParameterError(f"not a weights table record: {exc}") from None
+        """Rebuild a table from :meth:`as_dict`'s output (e.g. read back from a lineage record).
+
+        The document is checked against ``schema/weights-table-v1.schema.json``
+        first (after its nesting, without recursion), so a damaged or
+        hand-edited table is refused with the fields at fault named.
+
+        Raises
+        ------
+        ParameterError
+            Not a weights table: a field missing or of the wrong type or range,
+            e.g. ``rows[2].w_plus: must be of type number or null``.
+        """
+        if not isinstance(doc, Mapping):
+            raise ParameterError(f"not a weights table record: expected an object, got "
+                                 f"{type(doc).__name__}")
+        check_nesting(doc, error=ParameterError, source="not a weights table record")
+        issues = load_validator(TABLE_SCHEMA_FILE).issues(doc)
+        if issues:
+            listed = "; ".join(f"{json_path(i.path) or 'the table'}: {i.message}" for i in issues[:10])
+            more = f"; and {len(issues) - 10} more" if len(issues) > 10 else ""
+            raise ParameterError(f"not a weights table record: {listed}{more}")
+        return cls(name=doc["name"], kind=doc["kind"], rows=[dict(r) for r in doc["rows"]],
+                   unit_cell_km2=float(doc["unit_cell_km2"]),
+                   cell_area_km2=float(doc["cell_area_km2"]), small_count=doc.get("small_count"),
+                   area_units=float(doc["area_units"]), deposits=int(doc["deposits"]),
+                   nodata_area_units=float(doc["nodata_area_units"]),
+                   nodata_deposits=int(doc["nodata_deposits"]),
+                   merged_deposits=int(doc["merged_deposits"]),
+                   outside_deposits=int(doc["outside_deposits"]))
 
     def to_csv(self, level: float = DEFAULT_LEVEL) -> str:
         """Return the table as CSV text: :data:`CSV_COLUMNS`, one row per class or threshold.

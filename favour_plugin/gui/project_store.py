@@ -17,13 +17,12 @@ An edit marks the project as changed. Clearing the project clears the dock.
 from __future__ import annotations
 
 import copy
-import json
 import os
 
 from qgis.core import Qgis, QgsProject
 from qgis.PyQt.QtCore import QObject
 
-from ..core.errors import TreeFileError
+from ..core.errors import FavourError
 from ..core.tree import Tree
 from .common import notify, tr
 
@@ -77,8 +76,9 @@ class ProjectStore(QObject):
     def read(self, *args) -> None:
         """Show the tree stored in the project just opened (none: the dock stays empty).
 
-        A stored tree that cannot be read is reported, and the dock stays
-        empty rather than guessing.
+        A stored tree that cannot be read (damaged JSON, wrong types, too deep
+        or too large: see :meth:`Tree.from_draft_json`) is reported, and the
+        dock stays empty rather than guessing. Nothing raises out of this slot.
         """
         project, c = self.project, self.controller
         text, found = project.readEntry(SCOPE, "tree", "")
@@ -88,10 +88,15 @@ class ProjectStore(QObject):
         tree = None
         if found and text:
             try:
-                tree = Tree.from_draft(json.loads(text), base_dir=self.folder() or None)
-            except (TreeFileError, ValueError) as exc:
+                tree = Tree.from_draft_json(text, base_dir=self.folder() or None,
+                                            source="the tree stored in this project")
+            except FavourError as exc:
                 notify(self.iface, tr("The criteria tree stored in this project cannot be read: "
                                       "{error}").format(error=exc), Qgis.Critical)
+            except Exception as exc:  # a slot must not raise: PyQt would abort QGIS
+                notify(self.iface, tr("The criteria tree stored in this project cannot be read: "
+                                      "{error}").format(error=f"{type(exc).__name__}: {exc}"),
+                       Qgis.Critical)
         self._loading = True
         try:
             c.reset(tree, os.path.abspath(tree_file) if tree_file else None)

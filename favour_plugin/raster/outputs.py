@@ -29,7 +29,6 @@ file set aside comes back if its final name is empty.
 from __future__ import annotations
 
 import datetime as _dt
-import json
 import os
 import re
 import secrets
@@ -39,7 +38,7 @@ import tempfile
 from collections.abc import Iterable, Sequence
 
 from ..core.errors import OutputError
-from ..core.lineage import lineage_path
+from ..core.lineage import lineage_path, lineage_text
 
 try:  # POSIX: advisory locks released by the system when a process dies
     import fcntl
@@ -479,5 +478,5 @@ class OutputJob:
 def stage_lineage(outputs: OutputSet, record: dict, output: str) -> str:
     """Stage ``output``'s lineage record in ``outputs``; return the lineage file's final name."""
     target = str(lineage_path(output))
-    outputs.add_text(target, json.dumps(record, indent=2, ensure_ascii=False) + "\n")
+    outputs.add_text(target, lineage_text(record, target))
     return target
