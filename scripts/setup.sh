@@ -12,7 +12,7 @@ SYSTEM_PYTHON=/usr/bin/python3
 # QGIS and everything that links against the system numpy come from Debian.
 PACKAGES=(qgis qgis-providers python3-qgis python3-gdal gdal-bin
           python3-numpy python3-scipy python3-pandas python3-matplotlib
-          python3-statsmodels python3-sklearn python3-jsonschema
+          python3-statsmodels python3-sklearn python3-jsonschema python3-openpyxl
           python3-venv python3-pip xvfb xauth zip)
 
 missing=()

@@ -19,6 +19,10 @@ class ParameterError(FavourError, ValueError):
     """A membership, operator or algorithm parameter is missing or out of range."""
 
 
+class SheetError(FavourError, ValueError):
+    """A workshop score sheet cannot be imported; the message names the file, row and column."""
+
+
 class GridError(FavourError, ValueError):
     """A grid cannot be defined or a layer cannot be placed on it (no CRS, no overlap)."""
 
