@@ -245,10 +245,44 @@ def job_inputs(tree: Tree, plan: EvaluationPlan, tree_file: str | None = None,
     return found
 
 
-def _evaluate(tree, plan, output, node_outputs, feedback, grid, threads, job, tree_file,
-              workdir, outputs, max_cells) -> EvaluationResult:
-    """Body of :func:`evaluate_tree`, run inside the GDAL job settings."""
-    created = lin.utc_now()
+@dataclass
+class PreparedInputs:
+    """What a streamed job over a tree's proxies needs before its first block.
+
+    ``sources`` maps each leaf path to how it is read on ``grid``;
+    ``leaf_files`` to the files GDAL reads for it; the ``hasher`` is already
+    computing their checksums in the background (:meth:`checksums` waits).
+    """
+
+    grid: Grid
+    grid_note: dict
+    sources: dict[str, SourceSpec]
+    leaf_files: dict[str, list[str]]
+    cache_bytes: int
+    hasher: _Hasher
+
+    def checksums(self) -> dict[str, dict]:
+        """Wait for the input checksums and return them by path.
+
+        Raises
+        ------
+        MissingInputError
+            An input file could not be read while hashing it.
+        """
+        self.hasher.join()
+        if self.hasher.error is not None:
+            raise MissingInputError(f"an input file could not be read while hashing it: {self.hasher.error}")
+        return self.hasher.result
+
+
+def prepare_inputs(tree: Tree, plan: EvaluationPlan, grid: Grid | None, workdir: str,
+                   feedback: Feedback, tree_file: str | None = None, max_cells: int | None = None,
+                   span: tuple[float, float] = (0.0, 0.15)) -> PreparedInputs:
+    """Build the grid, align every leaf's proxy to it and start hashing the inputs.
+
+    ``grid`` overrides the tree's grid; ``max_cells`` coarsens it for a
+    quick look. Run inside :func:`~.gdalenv.gdal_job`.
+    """
     if grid is None:
         grid, grid_note = reference_grid(tree)
     else:
@@ -260,10 +294,9 @@ def _evaluate(tree, plan, output, node_outputs, feedback, grid, threads, job, tr
         feedback.info(f"quick look: cells {round(coarse.cell_x / grid.cell_x)} times larger on each side")
         grid = coarse
     feedback.info(f"grid: {grid.describe()}")
-    sources = _prepare_sources(tree, plan, grid, workdir, feedback, (0.0, 0.15))
+    sources = _prepare_sources(tree, plan, grid, workdir, feedback, span)
     unique = {spec.key: spec for spec in sources.values()}.values()
     cache_bytes = set_stream_cache(sum(cache_need(spec.record) for spec in unique))
-
     files = []
     if tree_file:
         files.append(os.path.abspath(tree_file))
@@ -276,16 +309,68 @@ def _evaluate(tree, plan, output, node_outputs, feedback, grid, threads, job, tr
         files.extend(leaf_files[leaf.path])
     hasher = _Hasher(list(dict.fromkeys(files)))
     hasher.start()
+    return PreparedInputs(grid, grid_note, sources, leaf_files, cache_bytes, hasher)
 
+
+def read_leaves(plan: EvaluationPlan, sources: dict[str, SourceSpec], reader: BlockReader,
+                window) -> dict[str, np.ndarray]:
+    """Read every leaf's proxy on ``window``; leaves sharing a layer read it once.
+
+    Raises
+    ------
+    InputError
+        A block could not be read; the message starts with the leaf's path.
+    """
+    by_key: dict[str, np.ndarray] = {}
+    values = {}
+    for leaf in plan.leaves:
+        spec = sources[leaf.path]
+        if spec.key not in by_key:
+            try:
+                by_key[spec.key] = reader.read(spec, window)
+            except InputError as exc:
+                raise InputError(f"{leaf.path}: {exc}") from None
+        values[leaf.path] = by_key[spec.key]
+    return values
+
+
+def base_record(job: str, created: str, tree: Tree, plan: EvaluationPlan, prepared: PreparedInputs,
+                tree_file: str | None, threads: int) -> dict:
+    """Return the lineage fields every tree job shares: tool, tree, grid, inputs and checksums."""
+    checksums = prepared.checksums()
+    return {
+        "format": lin.FORMAT, "version": lin.VERSION, "job": job, "created": created,
+        "tool": {"name": about.NAME, "version": about.VERSION, "python": platform.python_version(),
+                 "numpy": np.__version__, "gdal": gdal.__version__},
+        "host": platform.platform(),
+        "tree": tree.to_dict(), "base_dir": str(tree.base_dir) if tree.base_dir else None,
+        "tree_file": checksums.get(os.path.abspath(tree_file)) if tree_file else None,
+        "root": plan.root_path,
+        "grid": {**prepared.grid.to_dict(), "from": prepared.grid_note},
+        "inputs": [{"node": leaf.path, **prepared.sources[leaf.path].record,
+                    "files": [checksums[f] for f in prepared.leaf_files[leaf.path]]}
+                   for leaf in plan.leaves],
+        "parameters": {"block": [BLOCK_ROWS, BLOCK_COLS], "threads": threads,
+                       "gdal_cache_bytes": prepared.cache_bytes,
+                       "dtype": "float32", "nodata_value": -9999.0,
+                       "arithmetic": "float64 within each block"},
+        "nodata_policy": {step.path: step.operator.nodata for step in plan.steps},
+        "seed": None,
+        "caution": lin.CAUTION,
+    }
+
+
+def _evaluate(tree, plan, output, node_outputs, feedback, grid, threads, job, tree_file,
+              workdir, outputs, max_cells) -> EvaluationResult:
+    """Body of :func:`evaluate_tree`, run inside the GDAL job settings."""
+    created = lin.utc_now()
+    prepared = prepare_inputs(tree, plan, grid, workdir, feedback, tree_file, max_cells)
+    grid = prepared.grid
     writers = {plan.root_path: RasterWriter(output, grid, plan.root_path, outputs=outputs)}
     for path, file in node_outputs.items():
         writers[path] = RasterWriter(file, grid, path, outputs=outputs)
 
-    stats = _stream(plan, sources, grid, writers, feedback, threads, (0.15, 0.97))
-    hasher.join()
-    if hasher.error is not None:
-        raise MissingInputError(f"an input file could not be read while hashing it: {hasher.error}")
-
+    stats = _stream(plan, prepared.sources, grid, writers, feedback, threads, (0.15, 0.97))
     root_stats = stats[plan.root_path]
     if root_stats["valid_cells"] == 0:
         feedback.warning("the favourability has no valid cell: every cell is nodata in some "
@@ -296,28 +381,11 @@ def _evaluate(tree, plan, output, node_outputs, feedback, grid, threads, job, tr
             feedback.warning(f"{leaf.path}: the proxy has no valid cell on the grid", NodataWarning)
 
     record = {
-        "format": lin.FORMAT, "version": lin.VERSION, "job": job, "created": created,
-        "tool": {"name": about.NAME, "version": about.VERSION, "python": platform.python_version(),
-                 "numpy": np.__version__, "gdal": gdal.__version__},
-        "host": platform.platform(),
-        "tree": tree.to_dict(), "base_dir": str(tree.base_dir) if tree.base_dir else None,
-        "tree_file": hasher.result.get(os.path.abspath(tree_file)) if tree_file else None,
-        "root": plan.root_path,
-        "grid": {**grid.to_dict(), "from": grid_note},
-        "inputs": [{"node": leaf.path, **sources[leaf.path].record,
-                    "files": [hasher.result[f] for f in leaf_files[leaf.path]]}
-                   for leaf in plan.leaves],
-        "parameters": {"block": [BLOCK_ROWS, BLOCK_COLS], "threads": threads,
-                       "gdal_cache_bytes": cache_bytes,
-                       "dtype": "float32", "nodata_value": -9999.0,
-                       "arithmetic": "float64 within each block"},
-        "nodata_policy": {step.path: step.operator.nodata for step in plan.steps},
+        **base_record(job, created, tree, plan, prepared, tree_file, threads),
         "statistics": stats,
         "outputs": {"favourability": output, "nodes": dict(node_outputs)},
         "lineage_file": os.path.basename(str(lin.lineage_path(output))),
         "warnings": list(feedback.warnings),
-        "seed": None,
-        "caution": lin.CAUTION,
     }
     for path, writer in writers.items():
         writer.set_metadata(lin.summary_metadata(record, path), stats[path])
@@ -343,17 +411,7 @@ def _stream(plan: EvaluationPlan, sources: dict[str, SourceSpec], grid: Grid,
     keep = list(writers) + [leaf.path for leaf in plan.leaves]
 
     def work(window, reader):
-        by_key: dict[str, np.ndarray] = {}
-        values = {}
-        for leaf in plan.leaves:
-            spec = sources[leaf.path]
-            if spec.key not in by_key:
-                try:
-                    by_key[spec.key] = reader.read(spec, window)
-                except InputError as exc:
-                    raise InputError(f"{leaf.path}: {exc}") from None
-            values[leaf.path] = by_key[spec.key]
-        results = plan.evaluate_block(values, keep)
+        results = plan.evaluate_block(read_leaves(plan, sources, reader, window), keep)
         block_stats = {path: lin.NodeStatistics.of_block(array, histogram=path in writers)
                        for path, array in results.items()}
         return {path: results[path] for path in writers}, block_stats

@@ -13,7 +13,7 @@ from __future__ import annotations
 import os
 import threading
 from collections import deque
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import ThreadPoolExecutor
 
 from ..core.feedback import Feedback
@@ -25,14 +25,16 @@ DEFAULT_THREADS = max(1, min(2, os.cpu_count() or 1))
 
 
 def map_windows(work: Callable[[Window, BlockReader], object], grid: Grid, feedback: Feedback,
-                threads: int | None = None, span: tuple[float, float] = (0.0, 1.0)
-                ) -> Iterator[tuple[Window, object]]:
+                threads: int | None = None, span: tuple[float, float] = (0.0, 1.0),
+                items: Sequence | None = None) -> Iterator[tuple[Window, object]]:
     """Yield ``(window, work(window, reader))`` for every window of ``grid``, in order.
 
     At most two windows per thread are in flight, so memory stays bounded
     whatever the grid's size. Progress runs across ``span`` as results are
     yielded; a cancel raises :class:`~favour_plugin.core.errors.CancelledError`
     before the next result, and the pool is shut down however the loop ends.
+    ``items`` replaces the grid's windows by other units of work (a group of
+    sampled rows, say), passed to ``work`` in their place.
     """
     threads = threads or DEFAULT_THREADS
     local = threading.local()
@@ -47,8 +49,10 @@ def map_windows(work: Callable[[Window, BlockReader], object], grid: Grid, feedb
                 readers.append(reader)
         return window, work(window, reader)
 
-    total = count_windows(grid.width, grid.height)
-    windows = iter_windows(grid.width, grid.height)
+    if items is None:
+        total, windows = count_windows(grid.width, grid.height), iter_windows(grid.width, grid.height)
+    else:
+        total, windows = len(items), iter(items)
     pending: deque = deque()
     done = 0
     pool = ThreadPoolExecutor(max_workers=threads, thread_name_prefix="favour-block")
