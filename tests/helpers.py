@@ -107,3 +107,50 @@ def run_cli(*args, preexec_fn=None, timeout: int = 300) -> subprocess.CompletedP
     """Run ``python -m favour_plugin`` in a fresh interpreter, as a user would."""
     return subprocess.run([sys.executable, "-m", "favour_plugin", *map(str, args)], cwd=ROOT,
                           capture_output=True, text=True, timeout=timeout, preexec_fn=preexec_fn)
+
+
+def small_workshop(folder, agree: bool = False):
+    """A three-leaf tree on 90 x 110 rasters in ``folder``, three experts' scores and their sheets.
+
+    Returns (tree, scores, sheet paths); with ``agree`` the three experts give
+    the tree's own values, so every realisation is the tree itself.
+    """
+    from favour_plugin.core.scoring import Score, Scores
+    from favour_plugin.core.sheets import write_sheet
+    from favour_plugin.core.tree import Tree
+
+    folder = Path(folder)
+    shape = (90, 110)
+    mag, grav = "Favourability > Source > Mag", "Favourability > Source > Grav"
+    rng = np.random.default_rng(12)
+    write_raster(folder / "mag.tif", rng.normal(50, 20, shape).astype(np.float32))
+    write_raster(folder / "grav.tif", rng.normal(0, 3, shape).astype(np.float32))
+    host = rng.integers(1, 5, shape).astype(np.uint8)
+    host[:5, :5] = 0
+    write_raster(folder / "host.tif", host, nodata=0)
+    doc = tree_doc([
+        {"name": "Source", "component": "source", "operator": {"type": "weighted_mean"}, "children": [
+            leaf("Mag", "mag.tif", {"type": "linear", "lower": 20, "upper": 90}),
+            leaf("Grav", "grav.tif", {"type": "gaussian", "centre": 1.0, "spread": 2.0})]},
+        {"name": "Trap", "component": "trap", "operator": {"type": "or"}, "children": [
+            leaf("Host", "host.tif", {"type": "categories", "scores": {"1": 0.2, "2": 0.9, "3": 0.5},
+                                      "default": 0.1})]},
+    ], {"type": "gamma", "gamma": 0.6})
+    tree = Tree.load(write_tree(folder / "tree.json", doc))
+    if agree:
+        table = {e: {mag: {"importance": 5, "membership.lower": 20, "membership.upper": 90},
+                     grav: {"importance": 5}} for e in ("E1", "E2", "E3")}
+    else:
+        table = {
+            "E1": {mag: {"importance": 9, "membership.lower": (20, 10, 30), "membership.upper": 90},
+                   grav: {"importance": 3, "membership.spread": (2.0, 1.0, 3.0)}},
+            "E2": {mag: {"importance": 5, "membership.lower": 35, "membership.upper": (80, 70, 95)},
+                   grav: {"importance": 6}},
+            "E3": {mag: {"importance": 7, "membership.lower": 25, "membership.upper": 100},
+                   grav: {"importance": 7, "membership.spread": 1.5}},
+        }
+    scores = Scores(table={e: {n: {i: Score(*v) if isinstance(v, tuple) else Score(float(v))
+                                   for i, v in items.items()} for n, items in nodes.items()}
+                           for e, nodes in table.items()}, experts=tuple(table))
+    sheets = [str(write_sheet(folder / f"{e}.csv", tree, e, previous=scores)) for e in scores.experts]
+    return tree, scores, sheets

@@ -19,17 +19,15 @@ from hypothesis.extra.numpy import arrays
 from sklearn.metrics import roc_auc_score
 
 from favour_plugin.core.ensemble import BINS, UnitHistograms, summarise_stack
-from favour_plugin.core.scoring import Score, Scores, apply_values
-from favour_plugin.core.sheets import write_sheet
-from favour_plugin.core.tree import Tree
+from favour_plugin.core.scoring import apply_values
 from favour_plugin.core.uncertainty import sample_values, sensitivity_variants
 from favour_plugin.raster.engine import evaluate_tree
 from favour_plugin.raster.ensemble_jobs import MC_OUTPUTS, monte_carlo, sensitivity
-from tests.helpers import ORIGIN, leaf, read_raster, tree_doc, write_raster, write_tree, write_vector
+from tests.helpers import ORIGIN, read_raster, small_workshop, write_vector
 
-SHAPE = (90, 110)
-SOURCE, TRAP = "Favourability > Source", "Favourability > Trap"
-MAG, GRAV, HOST = f"{SOURCE} > Mag", f"{SOURCE} > Grav", f"{TRAP} > Host"
+SHAPE = (90, 110)  # the rasters of tests.helpers.small_workshop
+SOURCE = "Favourability > Source"
+MAG, GRAV, HOST = f"{SOURCE} > Mag", f"{SOURCE} > Grav", "Favourability > Trap > Host"
 
 
 # -- summaries of a stack -----------------------------------------------------------------
@@ -97,7 +95,7 @@ def test_histogram_auc_agrees_with_scikit_learn():
 
 def test_plans_sharing_a_cache_give_what_each_gives_alone(tmp_path):
     """Evaluating realisations with one shared cache gives each one's own result, bit for bit."""
-    tree, scores, _ = _workshop(tmp_path)
+    tree, scores, _ = small_workshop(tmp_path)
     plans = [apply_values(tree, v).compile() for v in sample_values(tree, scores, 12, seed=5)]
     rng = np.random.default_rng(1)
     values = {MAG: rng.normal(50, 20, (30, 40)), GRAV: rng.normal(0, 3, (30, 40)),
@@ -113,49 +111,13 @@ def test_plans_sharing_a_cache_give_what_each_gives_alone(tmp_path):
 # -- the Monte Carlo and sensitivity on small rasters ------------------------------------------
 
 
-def _workshop(folder, agree: bool = False):
-    """A three-leaf tree on rasters in ``folder``, and three experts' scores (or three who agree)."""
-    rng = np.random.default_rng(12)
-    write_raster(folder / "mag.tif", rng.normal(50, 20, SHAPE).astype(np.float32))
-    write_raster(folder / "grav.tif", rng.normal(0, 3, SHAPE).astype(np.float32))
-    host = rng.integers(1, 5, SHAPE).astype(np.uint8)
-    host[:5, :5] = 0
-    write_raster(folder / "host.tif", host, nodata=0)
-    doc = tree_doc([
-        {"name": "Source", "component": "source", "operator": {"type": "weighted_mean"}, "children": [
-            leaf("Mag", "mag.tif", {"type": "linear", "lower": 20, "upper": 90}),
-            leaf("Grav", "grav.tif", {"type": "gaussian", "centre": 1.0, "spread": 2.0})]},
-        {"name": "Trap", "component": "trap", "operator": {"type": "or"}, "children": [
-            leaf("Host", "host.tif", {"type": "categories", "scores": {"1": 0.2, "2": 0.9, "3": 0.5},
-                                      "default": 0.1})]},
-    ], {"type": "gamma", "gamma": 0.6})
-    tree = Tree.load(write_tree(folder / "tree.json", doc))
-    if agree:
-        table = {e: {MAG: {"importance": 5, "membership.lower": 20, "membership.upper": 90},
-                     GRAV: {"importance": 5}} for e in ("E1", "E2", "E3")}
-    else:
-        table = {
-            "E1": {MAG: {"importance": 9, "membership.lower": (20, 10, 30), "membership.upper": 90},
-                   GRAV: {"importance": 3, "membership.spread": (2.0, 1.0, 3.0)}},
-            "E2": {MAG: {"importance": 5, "membership.lower": 35, "membership.upper": (80, 70, 95)},
-                   GRAV: {"importance": 6}},
-            "E3": {MAG: {"importance": 7, "membership.lower": 25, "membership.upper": 100},
-                   GRAV: {"importance": 7, "membership.spread": 1.5}},
-        }
-    scores = Scores(table={e: {n: {i: Score(*v) if isinstance(v, tuple) else Score(float(v))
-                                   for i, v in items.items()} for n, items in nodes.items()}
-                           for e, nodes in table.items()}, experts=tuple(table))
-    sheets = [str(write_sheet(folder / f"{e}.csv", tree, e, previous=scores)) for e in scores.experts]
-    return tree, scores, sheets
-
-
 def _mc_outputs(folder, tag=""):
     return {name: str(folder / f"mc{tag}-{name}.tif") for name in MC_OUTPUTS}
 
 
 def test_zero_spread_gives_the_single_evaluation_everywhere(tmp_path):
     """With experts who agree, every summary equals the single evaluation cell for cell; std is 0."""
-    tree, _, sheets = _workshop(tmp_path, agree=True)
+    tree, _, sheets = small_workshop(tmp_path, agree=True)
     result = monte_carlo(tree, sheets, _mc_outputs(tmp_path), n=7, seed=3)
     single = evaluate_tree(tree, str(tmp_path / "single.tif"))
     expected = read_raster(single.output)
@@ -169,7 +131,7 @@ def test_zero_spread_gives_the_single_evaluation_everywhere(tmp_path):
 
 def test_percentiles_match_numpy_over_single_evaluations(tmp_path):
     """P50, P10, mean and std of the one-pass run equal numpy's over N ordinary evaluations."""
-    tree, scores, sheets = _workshop(tmp_path)
+    tree, scores, sheets = small_workshop(tmp_path)
     n, seed = 9, 21
     result = monte_carlo(tree, sheets, _mc_outputs(tmp_path), n=n, seed=seed, top_percent=20)
     singles = []
@@ -196,7 +158,7 @@ def test_percentiles_match_numpy_over_single_evaluations(tmp_path):
 
 def test_the_same_seed_gives_the_same_rasters(tmp_path):
     """The same seed writes identical cells; another seed other cells."""
-    tree, _, sheets = _workshop(tmp_path)
+    tree, _, sheets = small_workshop(tmp_path)
     first = monte_carlo(tree, sheets, _mc_outputs(tmp_path, "a"), n=6, seed=4)
     again = monte_carlo(tree, sheets, _mc_outputs(tmp_path, "b"), n=6, seed=4)
     other = monte_carlo(tree, sheets, _mc_outputs(tmp_path, "c"), n=6, seed=5)
@@ -208,7 +170,7 @@ def test_the_same_seed_gives_the_same_rasters(tmp_path):
 
 def test_a_pilot_of_sampled_rows_gives_thresholds_near_the_full_grid(tmp_path):
     """With a pilot of a fifth of the rows the realised top share stays near the one asked for."""
-    tree, _, sheets = _workshop(tmp_path)
+    tree, _, sheets = small_workshop(tmp_path)
     result = monte_carlo(tree, sheets, _mc_outputs(tmp_path), n=5, seed=2, top_percent=10,
                          pilot_cells=SHAPE[1] * 18)
     note = result.record["top_area"]
@@ -218,7 +180,7 @@ def test_a_pilot_of_sampled_rows_gives_thresholds_near_the_full_grid(tmp_path):
 
 def test_sensitivity_counts_cells_entering_and_leaving_the_top(tmp_path):
     """Entering and leaving counts equal numpy's on variants evaluated one by one; AUC near sklearn's."""
-    tree, _, _ = _workshop(tmp_path)
+    tree, _, _ = small_workshop(tmp_path)
     rng = np.random.default_rng(5)
     cells = [(int(r), int(c)) for r, c in zip(rng.integers(10, 90, 15), rng.integers(10, 110, 15))]
     deposits = write_vector(tmp_path / "deposits.gpkg", [
@@ -253,7 +215,7 @@ def _edge(values: np.ndarray, percent: float) -> float:
 
 def test_monte_carlo_refuses_bad_requests_before_any_work(tmp_path):
     """Unknown outputs, a top area of 0 and an output over a score sheet are refused, nothing written."""
-    tree, _, sheets = _workshop(tmp_path)
+    tree, _, sheets = small_workshop(tmp_path)
     from favour_plugin.core.errors import OutputError, ParameterError
 
     with pytest.raises(ParameterError, match="outputs are named mean"):

@@ -434,6 +434,10 @@ def evaluate_tree_file(tree_file: str, output: str, node_folder: str | None = No
                          max_cells=max_cells)
 
 
+#: Jobs whose output is one tree evaluated on a grid, which :func:`reproduce` can run again.
+TREE_JOBS = ("evaluate-tree", "membership", "distance-membership", "combine")
+
+
 @dataclass
 class Reproduction:
     """The outcome of evaluating a lineage's tree again and comparing every cell."""
@@ -484,10 +488,13 @@ def reproduce(output: str, feedback: Feedback | None = None, threads: int | None
     feedback = feedback or Feedback()
     output = os.path.abspath(output)
     record = lin.read_lineage(output)
+    if record["job"] not in TREE_JOBS:
+        raise LineageError(f"{output} comes from a {record['job']!r} job; reproduce evaluates the tree of "
+                           f"a tree evaluation again ({', '.join(TREE_JOBS)}), so run that job again instead")
     changes = lin.changed_inputs(record)
     tree_doc = record.get("tree")
-    if not isinstance(tree_doc, dict):
-        raise LineageError(f"the lineage of {output} holds no tree")
+    if not isinstance(tree_doc, dict) or not isinstance(record.get("grid"), dict):
+        raise LineageError(f"the lineage of {output} holds no tree or no grid")
     tree = Tree.from_dict(tree_doc, base_dir=record.get("base_dir"))
     grid = Grid.from_dict(record["grid"])
     if record.get("tree_file"):

@@ -1,0 +1,44 @@
+"""Feedback on the terminal: progress every tenth, notes with ``--verbose``, warnings always."""
+
+from __future__ import annotations
+
+import sys
+
+from ..core.feedback import Feedback
+
+
+class ConsoleFeedback(Feedback):
+    """Feedback on standard error: progress every 10%, notes with ``--verbose``, warnings always."""
+
+    def __init__(self, verbose: bool = False, quiet: bool = False) -> None:
+        super().__init__()
+        self.verbose = verbose
+        self.quiet = quiet
+        self._shown = -1
+
+    def set_progress(self, fraction: float) -> None:
+        """Print the progress when it passes another tenth."""
+        tenth = int(fraction * 10)
+        if not self.quiet and tenth > self._shown:
+            self._shown = tenth
+            print(f"  {10 * tenth:3d}%", file=sys.stderr, flush=True)
+
+    def info(self, text: str) -> None:
+        """Print a note with ``--verbose``."""
+        if self.verbose:
+            print(f"note: {text}", file=sys.stderr)
+
+    def warning(self, text: str, category=None) -> None:
+        """Print and record a warning."""
+        if category is None:
+            super().warning(text)
+        else:
+            super().warning(text, category)
+        print(f"warning: {text}", file=sys.stderr)
+
+
+def add_common(parser) -> None:
+    """Add the options every long-running subcommand takes: threads, verbose, quiet."""
+    parser.add_argument("--threads", type=int, default=None, help="worker threads (default 2)")
+    parser.add_argument("-v", "--verbose", action="store_true", help="print notes too")
+    parser.add_argument("-q", "--quiet", action="store_true", help="no progress")
