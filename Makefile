@@ -38,6 +38,7 @@ package: $(STAMP)
 bench: $(STAMP)
 	$(PY) bench/bench_evaluate.py
 	$(PY) bench/bench_evidence.py
+	$(PY) bench/bench_montecarlo.py
 
 screenshot: $(STAMP)
 	$(PY) scripts/screenshot_dock.py

@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import copy
+import csv
+import io
 import json
 import os
 import subprocess
@@ -154,3 +157,128 @@ def small_workshop(folder, agree: bool = False):
                            for e, nodes in table.items()}, experts=tuple(table))
     sheets = [str(write_sheet(folder / f"{e}.csv", tree, e, previous=scores)) for e in scores.experts]
     return tree, scores, sheets
+
+
+# -- trees shared by several test modules ----------------------------------------------
+
+
+def example_tree_doc() -> dict:
+    """The minimum-contract example of the tree file, with one of every membership type."""
+    return {
+        "format": "favour-tree", "version": 1, "name": "Example",
+        "grid": {"reference": "layers/magnetics.tif"},
+        "root": {"name": "Favourability", "operator": {"type": "gamma", "gamma": 0.9},
+                 "children": [
+            {"name": "Source", "component": "source", "operator": {"type": "or"}, "rationale": "r",
+             "children": [
+                 {"name": "Mafic volcanic host", "proxy": {"path": "layers/litho.tif", "band": 1},
+                  "membership": {"type": "categories", "scores": {"3": 0.9, "5": 0.6}, "default": 0.05},
+                  "weight": 1.0, "rationale": "r"},
+                 {"name": "Magnetic high", "proxy": {"path": "layers/magnetics.tif"},
+                  "membership": {"type": "linear", "lower": 10, "upper": 80}}]},
+            {"name": "Pathway", "component": "pathway",
+             "operator": {"type": "weighted_mean", "nodata": "ignore"}, "children": [
+                 {"name": "Near faults",
+                  "proxy": {"path": "layers/faults.gpkg", "layer": "faults", "measure": "distance"},
+                  "membership": {"type": "logistic", "midpoint": 500, "slope": -0.01}, "weight": 2},
+                 {"name": "Gravity ridge", "proxy": {"path": "layers/gravity.tif"},
+                  "membership": {"type": "gaussian", "centre": 2, "spread": 1.5}},
+                 {"name": "Arsenic", "proxy": {"path": "layers/arsenic.tif"},
+                  "membership": {"type": "piecewise", "points": [[5, 0], [20, 0.7], [60, 1]]}},
+                 {"name": "Depth", "proxy": {"path": "layers/cover.tif"},
+                  "membership": {"type": "trapezoid", "points": [0, 0, 50, 200]}}]}]}}
+
+
+def varied_tree_doc() -> dict:
+    """A tree with every membership type, vector proxies, a grid and nested groups."""
+    doc = tree_doc([
+        {"name": "Source", "component": "source", "operator": {"type": "weighted_mean"}, "children": [
+            leaf("Mafic host", "litho.tif", {"type": "categories", "scores": {"3": 0.9, "5": 0.6},
+                                             "default": 0.05}),
+            {**leaf("Gravity", "gravity.tif", {"type": "gaussian", "centre": 2, "spread": 1.5}),
+             "weight": 2},
+            leaf("Weights", "classes.tif", {"type": "weights", "weights": {"0": -0.4, "1": 1.2},
+                                            "default": None})]},
+        {"name": "Pathway", "component": "pathway", "operator": {"type": "gamma", "gamma": 0.8},
+         "children": [
+             leaf("Near faults", "faults.gpkg", {"type": "linear", "lower": 2000, "upper": 0},
+                  layer="faults", measure="distance"),
+             leaf("Grade", "samples.gpkg", {"type": "trapezoid", "points": [0, 1, 5, 9]},
+                  measure="attribute", field="grade"),
+             {"name": "Deeper", "operator": {"type": "sum", "nodata": "ignore"}, "children": [
+                 leaf("Arsenic", "arsenic.tif", {"type": "piecewise", "points": [[5, 0], [60, 1]]}),
+                 leaf("Already mu", "mu.tif", {"type": "identity"}),
+                 leaf("Slope", "slope.tif", {"type": "logistic", "midpoint": 5, "slope": -0.5},
+                      band=2)]}]}],
+        operator={"type": "product"}, grid={"crs": "EPSG:32750", "extent": [0, 0, 1000, 1000],
+                                             "cell_size": 25})
+    doc["notes"] = {"kept": [1, 2]}
+    return doc
+
+
+def node_chain(levels: int) -> dict:
+    """Return a chain of ``levels`` combining nodes ending in a leaf, built without recursion."""
+    node = {"name": "Deepest", "proxy": {"path": "a.tif"}, "membership": {"type": "identity"}}
+    for i in range(levels - 1):
+        node = {"name": f"Level {levels - 1 - i}", "operator": {"type": "and"}, "children": [node]}
+    return node
+
+
+def deep_tree_text(levels: int) -> str:
+    """A tree file whose root holds a chain of ``levels`` nodes, as text built without recursion."""
+    head = '{"name": "L", "operator": {"type": "and"}, "children": ['
+    leaf_text = '{"name": "Leaf", "proxy": {"path": "a.tif"}, "membership": {"type": "identity"}}'
+    return ('{"format": "favour-tree", "version": 1, "root": ' + head * levels + leaf_text
+            + "]}" * levels + "}")
+
+
+_DISTANCE = {"measure": "distance", "layer": "lines"}
+
+#: The tree the workshop tests score: four weighted or OR-ed groups, every kind of scored item.
+SCORED_TREE_DOC = tree_doc([
+    {"name": "Source", "operator": {"type": "weighted_mean"}, "children": [
+        {**leaf("Keel", "gravity.tif", {"type": "logistic", "midpoint": 2.0, "slope": 0.6}), "weight": 2},
+        leaf("Pile", "litho.tif", {"type": "categories", "scores": {"1": 0.5, "2": 0.9}, "default": None}),
+    ]},
+    {"name": "Pathway", "operator": {"type": "weighted_mean"}, "children": [
+        {**leaf("Splays", "faults.gpkg", {"type": "linear", "lower": 800, "upper": 100}, **_DISTANCE),
+         "weight": 3},
+        {**leaf("Mesh", "faults.gpkg", {"type": "trapezoid", "points": [0, 300, 3000, 7000]}, **_DISTANCE),
+         "weight": 0.5},
+    ]},
+    {"name": "Trap", "operator": {"type": "or"}, "children": [
+        leaf("Hinges", "hinges.gpkg", {"type": "gaussian", "centre": 0, "spread": 700}, **_DISTANCE),
+        leaf("Arsenic", "as.tif", {"type": "piecewise", "points": [[6, 0.0], [15, 0.75], [40, 0.95]]}),
+    ]},
+    {"name": "Preservation", "operator": {"type": "weighted_mean"}, "children": [
+        {**leaf("Cover", "cover.tif", {"type": "linear", "lower": 300, "upper": 0}), "weight": 10},
+        leaf("Granite", "granite.gpkg", {"type": "linear", "lower": 0, "upper": 1500}, **_DISTANCE),
+    ]},
+])
+
+
+def scored_tree():
+    """The workshop tests' tree (``SCORED_TREE_DOC``), a fresh copy each call."""
+    from favour_plugin.core.tree import Tree
+
+    return Tree.from_dict(copy.deepcopy(SCORED_TREE_DOC))
+
+
+def sheet_edit(node_path: str, item_name: str, /, **cells):
+    """Return a function that sets ``cells`` on the row of (node, item) in a score sheet's text."""
+    def change(text: str) -> str:
+        lines = text.split("\n")
+        header = next(csv.reader([next(line for line in lines if line and not line.startswith("#"))]))
+        for k, line in enumerate(lines):
+            if not line or line.startswith("#"):
+                continue
+            row = next(csv.reader([line]))
+            if row[1] == node_path and row[2] == item_name:
+                for column, value in cells.items():
+                    row[header.index(column)] = value
+                out = io.StringIO()
+                csv.writer(out, lineterminator="").writerow(row)
+                lines[k] = out.getvalue()
+                return "\n".join(lines)
+        raise AssertionError(f"no row for {node_path} / {item_name}")
+    return change

@@ -125,7 +125,7 @@ def manifest(district) -> dict:
 def demo_run(district) -> dict:
     """The demo script's run: evaluation outputs and the quicklook, written under the demo folder."""
     run_demo = _load("run_demo")
-    return run_demo.run(district / TREE_FILE.name, district / "build", feedback=Feedback())
+    return run_demo.run(district / TREE_FILE.name, district / "build", feedback=Feedback(), realisations=12)
 
 
 def test_same_seed_gives_same_cells_and_features(district, tmp_path):
@@ -313,3 +313,22 @@ def test_reproduce_says_identical_then_names_the_changed_input(district, tmp_pat
     assert [c["path"] for c in second.changed_inputs] == [str(magnetics)]
     assert second.changed_inputs[0]["node"].endswith("Magnetite destruction")
     assert "magnetics.tif" in second.summary() and "has changed" in second.summary()
+
+
+def test_demo_workshop_flags_the_planted_dispute_and_writes_the_uncertainty(demo_run):
+    """The demo workshop flags its planted dispute and writes the Monte Carlo rasters and the chart.
+
+    Mean and percentiles lie in [0, 1] with P10 ≤ P50 ≤ P90 (properties that must hold).
+    """
+    shop = demo_run["workshop"]
+    assert [f.split(" (")[0] for f in shop["flagged"]] == ["Favourability > Pathway > Fault mesh"]
+    rasters = {name: read_raster(path) for name, path in shop["uncertainty"].items()}
+    valid = ~np.isnan(rasters["mean"])
+    assert valid.mean() > 0.5
+    for name in ("mean", "p10", "p50", "p90", "robustness"):
+        assert 0.0 <= np.nanmin(rasters[name]) and np.nanmax(rasters[name]) <= 1.0
+    assert np.all(rasters["p10"][valid] <= rasters["p50"][valid] + 1e-7)
+    assert np.all(rasters["p50"][valid] <= rasters["p90"][valid] + 1e-7)
+    assert np.nanmin(rasters["std"]) >= 0 and np.nanmax(rasters["std"]) > 0
+    assert Path(shop["sensitivity"]["chart"]).read_bytes()[:4] == b"\x89PNG"
+    assert any(row["auc"] is not None for row in shop["rows"])

@@ -8,7 +8,6 @@ Monte Carlo must reproduce cell for cell.
 
 from __future__ import annotations
 
-import copy
 import json
 
 import numpy as np
@@ -20,6 +19,7 @@ from sklearn.metrics import roc_auc_score
 
 from favour_plugin.core.ensemble import BINS, UnitHistograms, summarise_stack
 from favour_plugin.core.scoring import apply_values
+from favour_plugin.core.tree import BlockCache
 from favour_plugin.core.uncertainty import sample_values, sensitivity_variants
 from favour_plugin.raster.engine import evaluate_tree
 from favour_plugin.raster.ensemble_jobs import MC_OUTPUTS, monte_carlo, sensitivity
@@ -100,12 +100,12 @@ def test_plans_sharing_a_cache_give_what_each_gives_alone(tmp_path):
     rng = np.random.default_rng(1)
     values = {MAG: rng.normal(50, 20, (30, 40)), GRAV: rng.normal(0, 3, (30, 40)),
               HOST: rng.integers(1, 5, (30, 40)).astype(float)}
-    cache: dict = {}
+    cache = BlockCache.for_plans(plans)
     for plan in plans:
         shared = plan.evaluate_block(values, cache=cache)[plan.root_path]
         alone = plan.evaluate_block(values)[plan.root_path]
         np.testing.assert_array_equal(shared, alone)
-    assert len(cache) < sum(len(p.leaves) + len(p.steps) for p in plans)  # something was shared
+    assert 0 < len(cache) < sum(len(p.leaves) + len(p.steps) for p in plans)  # shared, and only that
 
 
 # -- the Monte Carlo and sensitivity on small rasters ------------------------------------------
@@ -152,7 +152,7 @@ def test_percentiles_match_numpy_over_single_evaluations(tmp_path):
     assert np.mean(np.abs(measured[valid] - robust[valid]) > 1e-6) < 0.01
     record = json.loads((tmp_path / "mc-mean.tif.lineage.json").read_text())
     assert record["seed"] == seed and record["sampling"]["n"] == n and len(record["realisations"]) == n
-    assert record["top_area"]["threshold_source"] == "every row of the grid"
+    assert record["top_area"]["threshold_source"] == "every cell of the grid"
     assert 20 <= record["top_area"]["realised_top_percent"]["min"] < 21
 
 
@@ -168,14 +168,31 @@ def test_the_same_seed_gives_the_same_rasters(tmp_path):
                               equal_nan=True)
 
 
-def test_a_pilot_of_sampled_rows_gives_thresholds_near_the_full_grid(tmp_path):
-    """With a pilot of a fifth of the rows the realised top share stays near the one asked for."""
+def test_a_pilot_of_small_windows_gives_thresholds_near_the_full_grid(tmp_path):
+    """With a pilot of a fifth of the cells the realised top share stays near the one asked for."""
     tree, _, sheets = small_workshop(tmp_path)
     result = monte_carlo(tree, sheets, _mc_outputs(tmp_path), n=5, seed=2, top_percent=10,
-                         pilot_cells=SHAPE[1] * 18)
+                         pilot_cells=SHAPE[0] * SHAPE[1] // 5)
     note = result.record["top_area"]
-    assert note["threshold_source"].startswith("a pilot of 18 evenly spaced rows")
+    assert note["threshold_source"].startswith("a pilot of ")
     assert 7 <= note["realised_top_percent"]["min"] <= note["realised_top_percent"]["max"] <= 13
+
+
+def test_pilot_strips_span_the_grid_and_stay_inside_it():
+    """The pilot's strips hold about the cells asked for, cover every column, top row to bottom row."""
+    from favour_plugin.raster.ensemble_jobs import pilot_windows
+    from favour_plugin.raster.grid import Grid
+
+    for width, height in ((3000, 2000), (700, 9000), (9000, 300), (600, 40)):
+        grid = Grid.from_spec("EPSG:32633", [0, 0, width * 10, height * 10], 10)
+        windows = pilot_windows(grid, 200_000)
+        cells = sum(w.width * w.height for w in windows)
+        assert 100_000 <= cells <= 400_000 or cells == grid.cells
+        assert all(0 <= w.col_off and w.col_off + w.width <= width and 0 <= w.row_off
+                   and w.row_off + w.height <= height for w in windows)
+        assert min(w.row_off for w in windows) == 0 and max(w.row_off + w.height for w in windows) == height
+        first_strip = [w for w in windows if w.row_off == 0]
+        assert sum(w.width for w in first_strip) == width
 
 
 def test_sensitivity_counts_cells_entering_and_leaving_the_top(tmp_path):
@@ -211,19 +228,3 @@ def _edge(values: np.ndarray, percent: float) -> float:
     histograms = UnitHistograms(1)
     histograms.add(values[None].astype(np.float32))
     return float(histograms.top_thresholds(percent)[0])
-
-
-def test_monte_carlo_refuses_bad_requests_before_any_work(tmp_path):
-    """Unknown outputs, a top area of 0 and an output over a score sheet are refused, nothing written."""
-    tree, _, sheets = small_workshop(tmp_path)
-    from favour_plugin.core.errors import OutputError, ParameterError
-
-    with pytest.raises(ParameterError, match="outputs are named mean"):
-        monte_carlo(tree, sheets, {"median": str(tmp_path / "x.tif")})
-    with pytest.raises(ParameterError, match="top area must be a percentage"):
-        monte_carlo(tree, sheets, _mc_outputs(tmp_path), top_percent=0)
-    clash = copy.deepcopy(_mc_outputs(tmp_path))
-    clash["mean"] = str(tmp_path / "mag.tif")
-    with pytest.raises(OutputError, match="is a file this job reads"):
-        monte_carlo(tree, sheets, clash)
-    assert not any(p.name.startswith("mc-") for p in tmp_path.iterdir())

@@ -1,11 +1,13 @@
-"""Pairwise-comparison weights against Saaty's worked example, numpy's eigensolver and their properties."""
+"""Pairwise-comparison weights against Saaty's worked example, numpy's eigensolver and their properties.
+
+The matrices and judgements refused are rows of the table in tests/test_refusals.py.
+"""
 
 import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from favour_plugin.core.errors import ParameterError
 from favour_plugin.core.pairwise import (
     CR_LIMIT,
     RANDOM_INDEX,
@@ -146,32 +148,6 @@ def test_worst_judgement_is_the_planted_one(n, data):
     assert result.worst_consistent_value == pytest.approx(result.weights[i] / result.weights[j])
 
 
-REFUSALS = [
-    ("not square", [[1, 2, 3], [0.5, 1, 2]], r"must be square, got shape \(2, 3\)"),
-    ("ragged", [[1, 2], [0.5]], r"square table of numbers"),
-    ("text", [["a", "b"], ["c", "d"]], r"square table of numbers"),
-    ("one element", [[1]], r"at least 2 elements, got 1"),
-    ("empty", np.ones((0, 0)), r"at least 2 elements, got 0"),
-    ("too many", np.ones((16, 16)), r"tabulated up to n = 15"),
-    ("zero", [[1, 0], [0, 1]], r"finite and positive; entry \(1, 2\) is 0\.0"),
-    ("negative", [[1, -3], [-1 / 3, 1]], r"finite and positive; entry \(1, 2\) is -3\.0"),
-    ("nan", [[1, float("nan")], [1, 1]], r"finite and positive; entry \(1, 2\) is nan"),
-    ("inf", [[1, 2], [float("inf"), 1]], r"finite and positive; entry \(2, 1\) is inf"),
-    ("diagonal", [[1, 3, 5], [1 / 3, 2, 3], [1 / 5, 1 / 3, 1]],
-     r"diagonal .* must be 1 .*entry \(2, 2\) is 2\.0"),
-    ("not reciprocal", [[1, 3, 5], [1 / 3, 1, 3], [1 / 5, 3, 1]],
-     r"not reciprocal: entry \(2, 3\) is 3 and entry \(3, 2\) is 3, but it must be 1/3 = 0\.3333"),
-    ("two decimals", [[1, 7], [0.14, 1]], r"not reciprocal: entry \(1, 2\) is 7 and entry \(2, 1\) is 0\.14"),
-]
-
-
-@pytest.mark.parametrize("matrix, pattern", [(m, p) for _, m, p in REFUSALS], ids=[r[0] for r in REFUSALS])
-def test_refusals_name_the_fault(matrix, pattern):
-    """Each bad matrix is refused with a ParameterError naming the entry and its value."""
-    with pytest.raises(ParameterError, match=pattern):
-        pairwise_weights(matrix)
-
-
 def test_reciprocal_tolerance_takes_three_figures_and_uses_the_upper_triangle():
     """0.143 for 1/7 passes (within 1%) and the exact reciprocal of the upper triangle is used."""
     result = pairwise_weights([[1, 7], [0.143, 1]])
@@ -187,22 +163,6 @@ def test_judgements_build_the_reciprocal_matrix():
     a = matrix_from_judgements(names, judgements)
     np.testing.assert_allclose(a, SAATY_LIGHT, rtol=1e-15)
     assert pairwise_weights(a).lambda_max == pytest.approx(pairwise_weights(SAATY_LIGHT).lambda_max)
-
-
-@pytest.mark.parametrize("names, judgements, pattern", [
-    (["a", "b", "c"], [("a", "b", 3), ("a", "c", 5)], r"1 pair\(s\) not judged: b / c"),
-    (["a", "b"], [("a", "b", 3), ("b", "a", 1 / 3)], r"judgement 2 judges 'b' against 'a' again"),
-    (["a", "b"], [("a", "a", 3)], r"judgement 1 compares 'a' with itself"),
-    (["a", "b"], [("a", "b", 12)], r"from 1/9 to 9 on Saaty's scale, got 12"),
-    (["a", "b"], [("a", "b", 0.1)], r"from 1/9 to 9 on Saaty's scale, got 0\.1"),
-    (["a", "b"], [("a", "z", 3)], r"judgement names 'z', which is not one of: a, b"),
-    (["a", "a"], [], r"repeated: a"),
-    (["a"], [], r"at least 2 elements, got 1"),
-])
-def test_judgement_refusals(names, judgements, pattern):
-    """Incomplete, repeated, self or off-scale judgements are refused, naming the judgement."""
-    with pytest.raises(ParameterError, match=pattern):
-        matrix_from_judgements(names, judgements)
 
 
 def test_saaty_scale_has_seventeen_values():

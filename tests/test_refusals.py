@@ -1,16 +1,20 @@
 """Everything Favour refuses, and every fault it survives, in one place.
 
 Each row of ``CASES`` is one rule: what the user did, how it reaches Favour
-(a core call, the command line, or a processing algorithm), the error and the
-message the user must see. Every row also checks that nothing was lost: the
-folder of the case — inputs, the user's earlier outputs planted under the
-output names, everything — is byte for byte as it was, with no temporary
-file, lock or folder left behind. The faults that need more than one call
-(a cancel at each checkpoint, two runs at once, an interrupt from the
-terminal, the leftovers of a killed run) follow the table.
+(a core call, the command line, a processing algorithm, or a tree stored in a
+QGIS project), the error and the message the user must see. Every row also
+checks that nothing was lost: the folder of the case — inputs, the user's
+earlier outputs planted under the output names, everything — is byte for byte
+as it was, with no temporary file, lock or folder left behind. Rows over a
+tree or a score sheet check too that the tree in memory is unchanged, and
+where a refusal must come quickly or a read could block (a 50 MB file, a
+FIFO), the row's call carries its own time limit. The faults that need more
+than one call (a cancel at each checkpoint, two runs at once, an interrupt
+from the terminal, the leftovers of a killed run) follow the table.
 
-``help/refusals.md`` tells users the same rules; a test keeps every rule's
-sentence there.
+The scene, the snapshot and the small case builders are in
+``tests/refusal_cases.py``; the table itself is here. ``help/refusals.md``
+tells users the same rules; a test keeps every rule's sentence there.
 
 The messages are the outside reference here: each is what a user reads, and
 the property that must hold is that nothing on disk changed.
@@ -18,17 +22,18 @@ the property that must hold is that nothing on disk changed.
 
 from __future__ import annotations
 
-import hashlib
+import csv
+import json
 import os
 import re
 import resource
 import shutil
 import signal
 import subprocess
-import sys
 import threading
 from collections.abc import Callable
 from dataclasses import dataclass
+from functools import partial
 from pathlib import Path
 
 import numpy as np
@@ -46,97 +51,110 @@ from favour_plugin.core.errors import (
     MissingInputError,
     OutputError,
     ParameterError,
+    SheetError,
+    TreeFileError,
 )
 from favour_plugin.core.feedback import Feedback
-from favour_plugin.core.tree import Tree
+from favour_plugin.core.lineage import read_lineage
+from favour_plugin.core.pairwise import matrix_from_judgements, pairwise_weights
+from favour_plugin.core.scoring import Scores, Workshop
+from favour_plugin.core.sheets import export_sheets, write_sheet
+from favour_plugin.core.tree import MAX_NODES, Tree
+from favour_plugin.core.uncertainty import MAX_DRAWS, sample_trees, sensitivity_variants
+from favour_plugin.core.wofe import WeightsTable
+from favour_plugin.core.workshop import check_expert_weights
 from favour_plugin.raster.engine import evaluate_tree, evaluate_tree_file, reproduce
-from favour_plugin.raster.outputs import OutputLock
+from favour_plugin.raster.ensemble_jobs import MC_OUTPUTS, monte_carlo, sensitivity
 from favour_plugin.raster.wofe_jobs import evidence_weights, posterior
-from tests.helpers import ORIGIN, leaf, run_cli, tree_doc, write_raster, write_tree, write_vector
+from tests.helpers import (
+    ORIGIN,
+    deep_tree_text,
+    example_tree_doc,
+    leaf,
+    node_chain,
+    run_cli,
+    scored_tree,
+    sheet_edit,
+    small_workshop,
+    tree_doc,
+    varied_tree_doc,
+    write_raster,
+    write_tree,
+    write_vector,
+)
+from tests.refusal_cases import (
+    CELL,
+    CELL_KM2,
+    COVER,
+    GAMMA_LINE,
+    GRANITE,
+    HINGES,
+    KEEL,
+    LAST_ROW,
+    MAG,
+    MESH,
+    MIB,
+    NOT_UTF8_AT,
+    NOT_UTF8_LINE,
+    PILE,
+    ROWS,
+    SOURCE,
+    SPLAYS,
+    TRAP,
+    CancelAt,
+    Gate,
+    Scene,
+    absurd_numbers,
+    bad_in_two_files,
+    bad_leaf,
+    bad_sheet,
+    blocked_folder,
+    changed,
+    cli_tree,
+    damaged_lineage,
+    damaged_weights_file,
+    duplicate_row,
+    evaluate_call,
+    failing_commit,
+    failing_writer,
+    generalised_over_evidence,
+    geographic,
+    hard_linked_output,
+    held_lock,
+    huge_tree_file,
+    invalid_pool,
+    latin1_note,
+    leftovers,
+    lineage_over_tree_file,
+    lineage_text,
+    many_bad_rows,
+    node_raster_over_proxy,
+    not_utf8_tree_file,
+    points,
+    posterior_outputs,
+    read_fifo,
+    scores_of,
+    set_at,
+    sheet_file,
+    sheets_over_sheets,
+    slow_tree,
+    snapshot,
+    start_cli,
+    symlinked_output,
+    table_twice,
+    tall_scene,
+    then,
+    three_experts,
+    truncated_tree,
+    varied_tree_file,
+    weights_into_source,
+    with_surrogate_name,
+    within,
+    written_weights,
+)
 
 ROOT = Path(__file__).resolve().parent.parent
 HELP = ROOT / "help" / "refusals.md"
-CELL = 100.0  # m: one cell is 0.01 km²
-CELL_KM2 = CELL * CELL / 1e6
-
-
-# -- the scene: good inputs, the user's earlier outputs, and everything on disk -------------
-
-
-class Scene:
-    """A folder of good inputs for one case; outputs go under ``out/``, where earlier ones are planted."""
-
-    def __init__(self, root: Path, monkeypatch=None) -> None:
-        self.root = Path(root)
-        self.monkeypatch = monkeypatch
-        self.out = self.root / "out"
-        self.out.mkdir()
-        self.cleanups: list[Callable[[], None]] = []
-
-    def path(self, name: str) -> str:
-        """Return a path in the scene's folder."""
-        return str(self.root / name)
-
-    def earlier(self, name: str) -> str:
-        """Plant the user's earlier output at ``out/name`` and return its path."""
-        path = self.out / name
-        path.parent.mkdir(parents=True, exist_ok=True)
-        path.write_bytes(f"the user's earlier {name}".encode())
-        return str(path)
-
-    def raster(self, name: str = "mag.tif", array=None, **kwargs) -> str:
-        """Write a raster (a 60 x 80 continuous one by default) and return its path."""
-        if array is None:
-            array = np.random.default_rng(5).normal(50, 20, (60, 80)).astype(np.float32)
-        return write_raster(self.root / name, array, **kwargs)
-
-    def tree_doc(self) -> dict:
-        """A sound tree over ``mag.tif``: two components, gamma at the root."""
-        self.raster()
-        return tree_doc([
-            {"name": "Source", "component": "source", "operator": {"type": "or"},
-             "children": [leaf("Mag", "mag.tif", {"type": "linear", "lower": 20, "upper": 90})]},
-            {"name": "Trap", "component": "trap", "operator": {"type": "gamma", "gamma": 0.5},
-             "children": [leaf("Mag2", "mag.tif", {"type": "trapezoid", "points": [0, 30, 60, 100]})]},
-        ], {"type": "gamma", "gamma": 0.9})
-
-    def tree_file(self, doc: dict | None = None, name: str = "tree.json") -> str:
-        """Write a tree file (the sound one by default) and return its path."""
-        return write_tree(self.root / name, doc if doc is not None else self.tree_doc())
-
-    def tree(self) -> Tree:
-        """The sound tree, loaded from its file (so relative paths resolve)."""
-        return Tree.load(self.tree_file())
-
-    def evidence(self) -> tuple[str, str]:
-        """Class-coded evidence (1 and 2 in stripes) and three deposits on it."""
-        values = np.tile(np.array([1, 2], np.uint8), (20, 10))
-        return (write_raster(self.root / "e.tif", values, cell=CELL),
-                write_vector(self.root / "d.gpkg", points([(1, 0), (3, 2), (5, 1)]), layer="d"))
-
-
-def points(cells) -> list[str]:
-    """WKT points at the centres of (row, column) cells of the 100 m test grid."""
-    return [f"POINT ({ORIGIN[0] + (c + 0.5) * CELL} {ORIGIN[1] - (r + 0.5) * CELL})" for r, c in cells]
-
-
-def snapshot(root: Path) -> dict[str, str]:
-    """Every file (SHA-256), link (target) and folder under ``root``."""
-    found = {}
-    for path in sorted(root.rglob("*")):
-        key = str(path.relative_to(root))
-        if path.is_symlink():
-            found[key] = "link to " + os.readlink(path)
-        elif path.is_dir():
-            found[key] = "folder"
-        else:
-            found[key] = hashlib.sha256(path.read_bytes()).hexdigest()
-    return found
-
-
-def leftovers(root: Path) -> list[str]:
-    """Temporary files, locks and work folders a job must never leave behind."""
-    return [str(p) for p in root.rglob("*") if ".favour-" in p.name or ".partial" in p.name]
 
 
 # -- the rules -------------------------------------------------------------------------------
@@ -147,11 +165,13 @@ class Case:
     """One thing Favour refuses or survives.
 
     ``make(scene)`` prepares the case and returns what to run: a callable
-    (``via="core"``), the command line's arguments (``"cli"``), or an
-    algorithm id and its parameters (``"processing"``). ``error`` is the
-    exception expected (the command line always exits 2 with ``error: …``),
-    ``message`` a regular expression the message must match, and ``rule``
-    the sentence ``help/refusals.md`` tells users.
+    (``via="core"``), the command line's arguments (``"cli"``, or
+    ``"cli-limited"`` under a 2 MiB file-size limit), an algorithm id and its
+    parameters (``"processing"``), or the text of a tree stored in a QGIS
+    project (``"project"``: the dock must stay empty and say why). ``error``
+    is the exception expected (the command line always exits 2 with
+    ``error: …``), ``message`` a regular expression the message must match,
+    and ``rule`` the sentence ``help/refusals.md`` tells users.
     """
 
     id: str
@@ -162,183 +182,66 @@ class Case:
     message: str = ""
 
 
+# Outputs
 RULE_OVER_INPUT = "An output that is, or resolves to, a file the job reads."
 RULE_OUTPUT_TWICE = "Two outputs of one job that are the same file."
 RULE_LOCKED = "A second run aimed at an output another run is writing."
 RULE_OUTPUT_NAME = "An output that is not a GeoTIFF file name, or whose folder cannot be written."
+RULE_FULL = "A disk that fills, or a file-size limit reached, while an output is written."
+RULE_COMMIT = "A failure while the finished outputs are put in place."
+# Tree files and nodes
 RULE_TREE = "A tree file that is not valid JSON, not a Favour tree, or from a newer Favour."
 RULE_NODE = "A tree node with a missing, unknown or out-of-range operator or membership parameter."
+RULE_SIBLINGS = "Two children of one node with the same name."
+RULE_DEEP = "A tree more than 32 levels deep or of more than 1000 nodes."
+RULE_HUGE_NUMBER = ("A number in a tree beyond ±10¹⁵, or a grid of more than 2 147 483 647 columns "
+                    "or rows.")
+RULE_DRAFT = "A tree kept by the dock whose fields are of the wrong type."
+RULE_PARAMETER = "A processing parameter that is missing, out of range or not a number."
+# Files Favour reads
+RULE_NOT_A_FILE = ("A file to read that is missing, a folder, or not a plain file (a named pipe, a socket "
+                   "or a device).")
+RULE_FILE_SIZE = "A tree file over 8 MiB."
+RULE_NESTING = "JSON nested more than 100 levels deep."
+RULE_TEXT = ("Bytes that are not UTF-8, or JSON holding NaN, Infinity, a number no float can hold, or "
+             "half of a UTF-16 surrogate pair.")
+RULE_DAMAGED_RECORD = "A lineage or a weights table damaged or edited by hand."
+RULE_PROJECT_TREE = "A tree stored in a QGIS project that cannot be read."
+# Layers
 RULE_LAYER = "A proxy layer that is missing, empty, without a CRS, or off the grid."
 RULE_READ = "An input that cannot be read part-way through (a damaged or truncated file)."
 RULE_MU = "A raster given as a membership whose values are not in [0, 1]."
 RULE_LINEAGE = "Reproducing an output that has no lineage beside it."
-RULE_PARAMETER = "A processing parameter that is missing, out of range or not a number."
+# Weights of evidence
 RULE_EVIDENCE = ("Weights of evidence with no usable deposits, evidence that is all nodata, a "
                  "single class, non-integer classes, a geographic grid, or breaks where none apply.")
 RULE_WOFE_PARAMETER = "A weights-of-evidence parameter out of range (unit cell, kind, small-count rule)."
-RULE_FULL = "A disk that fills, or a file-size limit reached, while an output is written."
-RULE_COMMIT = "A failure while the finished outputs are put in place."
-
-
-def _evaluate(scene: Scene, output: str, tree: Tree | None = None, nodes: str | None = None, **kw):
-    """Return a call that evaluates ``tree`` (the scene's sound tree by default) into ``output``."""
-    tree = tree or scene.tree()
-    return lambda: evaluate_tree(tree, output, nodes, **kw)
-
-
-def _symlinked_output(scene: Scene):
-    tree = scene.tree()
-    link = scene.out / "fav.tif"
-    link.symlink_to(Path(scene.path("mag.tif")))
-    return _evaluate(scene, str(link), tree)
-
-
-def _hard_linked_output(scene: Scene):
-    tree = scene.tree()
-    os.link(scene.path("mag.tif"), scene.out / "fav.tif")
-    return _evaluate(scene, str(scene.out / "fav.tif"), tree)
-
-
-def _lineage_over_tree_file(scene: Scene):
-    tree_file = scene.tree_file(name="fav.tif.lineage.json")
-    scene.earlier("fav.tif")
-    return lambda: evaluate_tree_file(tree_file, str(scene.root / "fav.tif"))
-
-
-def _node_raster_over_proxy(scene: Scene):
-    doc = scene.tree_doc()
-    scene.raster("source.tif")
-    doc["root"]["children"][0]["children"][0]["proxy"]["path"] = "source.tif"
-    tree = Tree.load(scene.tree_file(doc))
-    return _evaluate(scene, scene.earlier("fav.tif"), tree, nodes=str(scene.root))
-
-
-def _held_lock(scene: Scene):
-    tree = scene.tree()
-    output = scene.earlier("fav.tif")
-    lock = OutputLock([output])
-    lock.acquire()
-    scene.cleanups.append(lock.release)
-    return _evaluate(scene, output, tree)
-
-
-def _generalised_over_evidence(scene: Scene):
-    evidence, deposits = scene.evidence()
-    table = scene.earlier("w.csv")
-    return lambda: evidence_weights(evidence, deposits, "categorical", table,
-                                    unit_area_km2=CELL_KM2, output_generalised=evidence)
-
-
-def _table_twice(scene: Scene):
-    evidence, deposits = scene.evidence()
-    generalised = scene.earlier("g.tif")
-    return lambda: evidence_weights(evidence, deposits, "categorical", generalised + ".weights.csv",
-                                    unit_area_km2=CELL_KM2, output_generalised=generalised)
-
-
-def _posterior_outputs(scene: Scene, probability: str | None, std: str | None):
-    evidence, deposits = scene.evidence()
-    binary = scene.raster("b.tif", np.tile(np.array([0, 1], np.uint8), (20, 10)), cell=CELL)
-    probability = probability or scene.earlier("p.tif")
-    std = std or scene.earlier("s.tif")
-    return lambda: posterior([binary], deposits, probability.replace("EVIDENCE", binary),
-                             std.replace("EVIDENCE", binary), unit_area_km2=CELL_KM2)
-
-
-def _blocked_folder(scene: Scene):
-    tree = scene.tree()
-    Path(scene.path("blocker")).write_text("a file, not a folder")
-    return _evaluate(scene, scene.path("blocker/fav.tif"), tree)
-
-
-def _cli_tree(scene: Scene, change) -> list:
-    doc = scene.tree_doc()
-    change(doc)
-    return ["evaluate", scene.tree_file(doc), "-o", scene.earlier("fav.tif"),
-            "--nodes", str(scene.out / "nodes")]
-
-
-def _set(path, value):
-    """Return a change of a tree document: ``doc[path] = value`` (deleted when value is ...)."""
-    def change(doc):
-        target = doc
-        for key in path[:-1]:
-            target = target[key]
-        if value is ...:
-            del target[path[-1]]
-        else:
-            target[path[-1]] = value
-    return change
-
-
-MAG = ("root", "children", 0, "children", 0)
-TRAP = ("root", "children", 1)
-
-
-def _bad_leaf(make_leaf):
-    """A case whose second leaf (made by ``make_leaf(scene)``) is unusable; core call."""
-    def make(scene: Scene):
-        mag = scene.raster()
-        doc = tree_doc([leaf("Mag", mag, {"type": "linear", "lower": 60, "upper": 160}),
-                        make_leaf(scene)], grid={"reference": mag})
-        return _evaluate(scene, scene.earlier("fav.tif"), Tree.from_dict(doc), nodes=str(scene.out / "nodes"))
-    return make
-
-
-def _truncated(scene: Scene) -> str:
-    """A tiled GeoTIFF cut short: its first tiles read, later ones fail."""
-    rng = np.random.default_rng(3)
-    path = write_raster(scene.root / "cut.tif", rng.random((600, 600)).astype(np.float32),
-                        options=("TILED=YES", "COMPRESS=DEFLATE"))
-    size = os.path.getsize(path)
-    with open(path, "r+b") as handle:
-        handle.truncate(int(size * 0.6))
-    return path
-
-
-def _truncated_tree(scene: Scene) -> str:
-    cut = _truncated(scene)
-    return write_tree(scene.root / "cut.json",
-                      tree_doc([leaf("Cut", cut, {"type": "linear", "lower": 0, "upper": 1})]))
-
-
-def _failing_writer(scene: Scene):
-    """The writer fails after its first block, as a disk would."""
-    from favour_plugin.raster import writer as writer_module
-
-    original = writer_module.RasterWriter.write
-    calls = {"n": 0}
-
-    def write(self, window, values):
-        calls["n"] += 1
-        if calls["n"] > 1:
-            raise OutputError(f"cannot write {self.path}: no space left on device (simulated)")
-        original(self, window, values)
-    scene.monkeypatch.setattr(writer_module.RasterWriter, "write", write)
-    rng = np.random.default_rng(9)
-    big = scene.raster("big.tif", rng.random((700, 700)).astype(np.float32))
-    tree = Tree.from_dict(tree_doc([leaf("Big", big, {"type": "linear", "lower": 0, "upper": 1})]))
-    return _evaluate(scene, scene.earlier("fav.tif"), tree)
-
-
-def _failing_commit(scene: Scene):
-    """The second rename of the commit fails: the first output must get its earlier file back."""
-    from favour_plugin.raster import outputs as outputs_module
-
-    original = os.replace
-    calls = {"n": 0}
-
-    def replace(src, dst):
-        if ".partial" in str(src):
-            calls["n"] += 1
-            if calls["n"] == 2:
-                raise OSError(28, "No space left on device")
-        original(src, dst)
-    scene.monkeypatch.setattr(outputs_module.os, "replace", replace)
-    tree = scene.tree()
-    scene.earlier("fav.tif.lineage.json")
-    scene.earlier("fav.qml")
-    return _evaluate(scene, scene.earlier("fav.tif"), tree)
+# Score sheets and the workshop
+RULE_SHEET = ("A score sheet with an unknown node or item, a value that is not a number or is off its "
+              "scale, a bad range or confidence, a repeated row, or siblings scored on two scales.")
+RULE_SHEET_FILE = ("A score sheet that is empty, not UTF-8, without the sheet's header row, not a .csv "
+                   "or .xlsx file, or missing.")
+RULE_SHEET_MEMBERSHIP = ("Scores, one expert's or pooled, that make an invalid membership or weigh every "
+                         "child of a node 0.")
+RULE_SHEET_WRITE = ("Score sheets asked for in another format than .csv or .xlsx, or for expert ids that "
+                    "repeat or start with '#'.")
+RULE_SHEET_OVER = "Score sheets written where a sheet of the same name already exists."
+RULE_ROUND = "A round of scores added out of turn."
+RULE_EXPERT_WEIGHTS = ("Expert weights that name someone who gave no scores, leave someone out, are "
+                       "negative or not a number, or are all 0.")
+RULE_NODE_WEIGHTS = ("Weights put into a node that do not match its children in number, are negative, or "
+                     "are all 0.")
+RULE_MATRIX = ("A pairwise matrix that is not square, has fewer than 2 or more than 15 elements, holds "
+               "an entry that is not a positive number, has a diagonal entry other than 1, or is not "
+               "reciprocal.")
+RULE_JUDGEMENTS = ("Pairwise judgements that leave a pair out, judge a pair twice or an element against "
+                   "itself, name an unknown element, or lie off the scale from 1/9 to 9.")
+RULE_SAMPLER = ("A Monte Carlo request for fewer than 1 realisation, with a seed that is not a whole "
+                "number from 0, or with an unknown sampling mode or statistic.")
+RULE_NO_VALID_DRAW = "Experts' ranges from which no valid membership can be drawn."
+RULE_SENSITIVITY = "A sensitivity weight change that is not a fraction strictly between 0 and 1."
+RULE_MC_REQUEST = ("A Monte Carlo or sensitivity run asked for outputs it does not write, a top area "
+                   "outside 0–100 %, or a table that is not CSV.")
 
 
 CASES: list[Case] = [
@@ -347,73 +250,73 @@ CASES: list[Case] = [
          lambda s: ["evaluate", s.tree_file(), "-o", s.path("mag.tif")], OutputError,
          r"the output .*mag\.tif \(the favourability\) is a file this job reads: the layer of "
          r"Favourability > Source > Mag"),
-    Case("output links to a proxy", RULE_OVER_INPUT, "core", _symlinked_output, OutputError,
+    Case("output links to a proxy", RULE_OVER_INPUT, "core", symlinked_output, OutputError,
          r"is a file this job reads: the layer of Favourability > Source > Mag "
          r"\(it resolves to .*mag\.tif\)"),
-    Case("output is a hard link of a proxy", RULE_OVER_INPUT, "core", _hard_linked_output, OutputError,
+    Case("output is a hard link of a proxy", RULE_OVER_INPUT, "core", hard_linked_output, OutputError,
          r"out/fav\.tif \(the favourability\) is a file this job reads: the layer of .*Mag"),
     Case("output reaches a proxy through ..", RULE_OVER_INPUT, "core",
-         lambda s: _evaluate(s, str(s.out / ".." / "mag.tif")), OutputError,
+         lambda s: evaluate_call(s, str(s.out / ".." / "mag.tif")), OutputError,
          r"mag\.tif \(the favourability\) is a file this job reads"),
-    Case("lineage over the tree file", RULE_OVER_INPUT, "core", _lineage_over_tree_file, OutputError,
+    Case("lineage over the tree file", RULE_OVER_INPUT, "core", lineage_over_tree_file, OutputError,
          r"fav\.tif\.lineage\.json \(its lineage\) is a file this job reads: the tree file"),
-    Case("component raster over a proxy", RULE_OVER_INPUT, "core", _node_raster_over_proxy, OutputError,
+    Case("component raster over a proxy", RULE_OVER_INPUT, "core", node_raster_over_proxy, OutputError,
          r"source\.tif \(the raster of Favourability > Source\) is a file this job reads"),
     Case("grid reference as output (cli)", RULE_OVER_INPUT, "cli",
          lambda s: ["evaluate", s.tree_file({**s.tree_doc(), "grid": {"reference": "ref.tif"}}), "-o",
                     s.raster("ref.tif")],
          OutputError, r"ref\.tif \(the favourability\) is a file this job reads: the grid reference"),
-    Case("generalised evidence over the evidence", RULE_OVER_INPUT, "core", _generalised_over_evidence,
+    Case("generalised evidence over the evidence", RULE_OVER_INPUT, "core", generalised_over_evidence,
          OutputError, r"e\.tif \(the generalised evidence\) is a file this job reads: the evidence"),
     Case("posterior over its evidence", RULE_OVER_INPUT, "core",
-         lambda s: _posterior_outputs(s, "EVIDENCE", None), OutputError,
+         lambda s: posterior_outputs(s, "EVIDENCE", None), OutputError,
          r"b\.tif \(the posterior probability\) is a file this job reads: the evidence"),
     Case("output is a proxy (processing)", RULE_OVER_INPUT, "processing",
          lambda s: ("favour:evaluatetree", {"TREE": s.tree_file(), "OUTPUT": s.path("mag.tif")}),
          Exception, r"is a file this job reads: the layer of Favourability > Source > Mag"),
-    Case("weights table written twice", RULE_OUTPUT_TWICE, "core", _table_twice, OutputError,
+    Case("weights table written twice", RULE_OUTPUT_TWICE, "core", table_twice, OutputError,
          r"two outputs are the same file: .*w?\.csv .*and .*g\.tif\.weights\.csv"),
     Case("posterior and its spread one file", RULE_OUTPUT_TWICE, "core",
-         lambda s: _posterior_outputs(s, s.path("out/p.tif"), s.path("out/p.tif")), OutputError,
+         lambda s: posterior_outputs(s, s.path("out/p.tif"), s.path("out/p.tif")), OutputError,
          r"two outputs are the same file: .*p\.tif \(the posterior probability\) and .*p\.tif"),
-    Case("another run holds the output", RULE_LOCKED, "core", _held_lock, OutputError,
+    Case("another run holds the output", RULE_LOCKED, "core", held_lock, OutputError,
          r"another Favour run is writing .*fav\.tif \(process \d+ on .*\); wait for it"),
     # -- output names and folders ---------------------------------------------------------------
-    Case("folder blocked by a file", RULE_OUTPUT_NAME, "core", _blocked_folder, OutputError,
+    Case("folder blocked by a file", RULE_OUTPUT_NAME, "core", blocked_folder, OutputError,
          r"cannot write to the folder .*blocker"),
     Case("output not a GeoTIFF", RULE_OUTPUT_NAME, "core",
-         lambda s: _evaluate(s, s.path("out/fav.png")), OutputError, r"must be a GeoTIFF"),
+         lambda s: evaluate_call(s, s.path("out/fav.png")), OutputError, r"must be a GeoTIFF"),
     Case("folder blocked by a file (cli)", RULE_OUTPUT_NAME, "cli",
          lambda s: (Path(s.path("blocked")).write_text("not a folder"),
                     ["evaluate", s.tree_file(), "-o", s.path("blocked/fav.tif")])[1],
          OutputError, r"cannot write to the folder .*blocked"),
     # -- tree files, on the command line ------------------------------------------------------------
     Case("unknown membership (cli)", RULE_NODE, "cli",
-         lambda s: _cli_tree(s, _set((*MAG, "membership", "type"), "fuzzy")), ParameterError,
+         lambda s: cli_tree(s, set_at((*MAG, "membership", "type"), "fuzzy")), ParameterError,
          r"Favourability > Source > Mag: membership\.type: must be one of"),
     Case("unknown operator (cli)", RULE_NODE, "cli",
-         lambda s: _cli_tree(s, _set((*TRAP, "operator", "type"), "xor")), ParameterError,
+         lambda s: cli_tree(s, set_at((*TRAP, "operator", "type"), "xor")), ParameterError,
          r"Favourability > Trap: operator\.type: must be one of"),
     Case("missing parameter (cli)", RULE_NODE, "cli",
-         lambda s: _cli_tree(s, _set((*MAG, "membership", "upper"), ...)), ParameterError,
+         lambda s: cli_tree(s, set_at((*MAG, "membership", "upper"), ...)), ParameterError,
          r"Favourability > Source > Mag: membership: 'upper' is required"),
     Case("non-numeric parameter (cli)", RULE_NODE, "cli",
-         lambda s: _cli_tree(s, _set((*MAG, "membership", "lower"), "low")), ParameterError,
+         lambda s: cli_tree(s, set_at((*MAG, "membership", "lower"), "low")), ParameterError,
          r"Favourability > Source > Mag: membership\.lower: must be of type number"),
     Case("gamma outside [0, 1] (cli)", RULE_NODE, "cli",
-         lambda s: _cli_tree(s, _set((*TRAP, "operator", "gamma"), 1.5)), ParameterError,
+         lambda s: cli_tree(s, set_at((*TRAP, "operator", "gamma"), 1.5)), ParameterError,
          r"Favourability > Trap: operator\.gamma: must be at most 1, got 1\.5"),
     Case("lower equals upper (cli)", RULE_NODE, "cli",
-         lambda s: _cli_tree(s, _set((*MAG, "membership", "upper"), 20)), ParameterError,
+         lambda s: cli_tree(s, set_at((*MAG, "membership", "upper"), 20)), ParameterError,
          r"Favourability > Source > Mag: membership 'linear': 'lower' and 'upper' are both 20"),
     Case("unordered trapezoid (cli)", RULE_NODE, "cli",
-         lambda s: _cli_tree(s, _set((*TRAP, "children", 0, "membership", "points"), [0, 60, 30, 100])),
+         lambda s: cli_tree(s, set_at((*TRAP, "children", 0, "membership", "points"), [0, 60, 30, 100])),
          ParameterError, r"Favourability > Trap > Mag2: membership 'trapezoid': points must be ordered"),
     Case("missing proxy file (cli)", RULE_LAYER, "cli",
-         lambda s: _cli_tree(s, _set((*MAG, "proxy", "path"), "gone.tif")), MissingInputError,
+         lambda s: cli_tree(s, set_at((*MAG, "proxy", "path"), "gone.tif")), MissingInputError,
          r"Favourability > Source > Mag: the layer file .*gone\.tif does not exist"),
     Case("tree from a newer Favour (cli)", RULE_TREE, "cli",
-         lambda s: _cli_tree(s, _set(("version",), 3)), ParameterError,
+         lambda s: cli_tree(s, set_at(("version",), 3)), ParameterError,
          r"tree file version 3 is newer than this Favour reads"),
     Case("invalid JSON (cli)", RULE_TREE, "cli",
          lambda s: (Path(s.path("tree.json")).write_text(
@@ -422,34 +325,34 @@ CASES: list[Case] = [
          ParameterError, r"not valid JSON: .* line 1"),
     Case("vector proxy without features (cli)", RULE_LAYER, "cli",
          lambda s: (write_vector(s.root / "none.gpkg", [], layer="faults"),
-                    _cli_tree(s, _set((*MAG, "proxy"), {"path": "none.gpkg", "measure": "distance"})))[1],
+                    cli_tree(s, set_at((*MAG, "proxy"), {"path": "none.gpkg", "measure": "distance"})))[1],
          InputError, r"Favourability > Source > Mag: .*has no features"),
     Case("raster proxy without a CRS (cli)", RULE_LAYER, "cli",
          lambda s: (write_raster(s.root / "nocrs.tif", np.ones((10, 10), np.float32), crs=None),
-                    _cli_tree(s, _set((*MAG, "proxy"), {"path": "nocrs.tif"})))[1],
+                    cli_tree(s, set_at((*MAG, "proxy"), {"path": "nocrs.tif"})))[1],
          GridError, r"Favourability > Source > Mag: .*has no CRS"),
     # -- proxy layers ------------------------------------------------------------------------
     Case("proxy file missing", RULE_LAYER, "core",
-         _bad_leaf(lambda s: leaf("Missing", s.path("nope.tif"), {"type": "linear", "lower": 0, "upper": 1})),
+         bad_leaf(lambda s: leaf("Missing", s.path("nope.tif"), {"type": "linear", "lower": 0, "upper": 1})),
          MissingInputError, r"Favourability > Missing: the layer file .*nope\.tif does not exist"),
     Case("vector proxy without features", RULE_LAYER, "core",
-         _bad_leaf(lambda s: leaf("Empty", write_vector(s.root / "empty.gpkg", [], layer="none"),
+         bad_leaf(lambda s: leaf("Empty", write_vector(s.root / "empty.gpkg", [], layer="none"),
                                   {"type": "linear", "lower": 0, "upper": 1}, measure="distance")),
          InputError, r"Favourability > Empty: the vector layer empty\.gpkg:none has no features"),
     Case("raster proxy without a CRS", RULE_LAYER, "core",
-         _bad_leaf(lambda s: leaf("NoCRS", s.raster("nocrs.tif", crs=None),
+         bad_leaf(lambda s: leaf("NoCRS", s.raster("nocrs.tif", crs=None),
                                   {"type": "linear", "lower": 0, "upper": 1})),
          GridError, r"Favourability > NoCRS: the layer .*nocrs\.tif has no CRS"),
     Case("vector proxy without a CRS", RULE_LAYER, "core",
-         _bad_leaf(lambda s: leaf("NoCRSv", write_vector(s.root / "nocrs.gpkg", points([(2, 2)]), crs=None),
+         bad_leaf(lambda s: leaf("NoCRSv", write_vector(s.root / "nocrs.gpkg", points([(2, 2)]), crs=None),
                                   {"type": "linear", "lower": 0, "upper": 1}, measure="distance")),
          GridError, r"Favourability > NoCRSv: the vector layer nocrs\.gpkg:features has no CRS"),
     Case("proxy off the grid", RULE_LAYER, "core",
-         _bad_leaf(lambda s: leaf("Far", s.raster("far.tif", np.ones((5, 5), np.float32), origin=(9e6, 9e6)),
+         bad_leaf(lambda s: leaf("Far", s.raster("far.tif", np.ones((5, 5), np.float32), origin=(9e6, 9e6)),
                                   {"type": "linear", "lower": 0, "upper": 1})),
          GridError, r"Favourability > Far: the layer .*far\.tif .* does not overlap the grid"),
     Case("identity over values that are not μ", RULE_MU, "core",
-         _bad_leaf(lambda s: leaf("Not mu", s.raster(), {"type": "identity"})),
+         bad_leaf(lambda s: leaf("Not mu", s.raster(), {"type": "identity"})),
          InputError, r"Favourability > Not mu: membership 'identity' needs values already in \[0, 1\]"),
     Case("identity refuses 1.7", RULE_MU, "core",
          lambda s: lambda: m.parse_membership({"type": "identity"})(np.array([0.2, 1.7])),
@@ -462,11 +365,11 @@ CASES: list[Case] = [
     # -- reads that fail part-way ----------------------------------------------------------------
     Case("truncated proxy", RULE_READ, "core",
          lambda s: (lambda tree, out: lambda: evaluate_tree_file(tree, out))(
-             _truncated_tree(s), s.earlier("fav.tif")), InputError,
+             truncated_tree(s), s.earlier("fav.tif")), InputError,
          r"Favourability > Cut: cannot read .*cut\.tif at rows \d+–\d+, columns \d+–\d+: "
          r".*damaged or truncated"),
     Case("truncated proxy (cli)", RULE_READ, "cli",
-         lambda s: ["evaluate", _truncated_tree(s), "-o", s.earlier("fav.tif")], InputError,
+         lambda s: ["evaluate", truncated_tree(s), "-o", s.earlier("fav.tif")], InputError,
          r"Favourability > Cut: cannot read .*cut\.tif at rows"),
     # -- lineage ---------------------------------------------------------------------------------
     Case("reproduce without lineage", RULE_LINEAGE, "core",
@@ -475,16 +378,19 @@ CASES: list[Case] = [
     Case("reproduce without lineage (processing)", RULE_LINEAGE, "processing",
          lambda s: ("favour:reproduce", {"INPUT": s.raster("plain.tif")}), Exception, "no lineage found"),
     # -- a full disk and a failing commit -----------------------------------------------------------
-    Case("writer fails after a block", RULE_FULL, "core", _failing_writer, OutputError,
+    Case("writer fails after a block", RULE_FULL, "core", failing_writer, OutputError,
          r"cannot write .*fav\.tif: no space left on device"),
     Case("file-size limit reached (cli)", RULE_FULL, "cli-limited",
          lambda s: ["evaluate", s.tree_file(tree_doc([leaf("Big", s.raster(
              "big.tif", np.random.default_rng(2).random((900, 900)).astype(np.float32)),
              {"type": "linear", "lower": 0, "upper": 1})])), "-o", s.earlier("fav.tif")],
          OutputError, r"cannot (write|finish) .*fav\.tif.*File too large"),
-    Case("second rename of the commit fails", RULE_COMMIT, "core", _failing_commit, OutputError,
+    Case("second rename of the commit fails", RULE_COMMIT, "core", failing_commit, OutputError,
          r"cannot put the finished .* in place: No space left on device; every earlier file is as it was"),
 ]
+
+
+# -- memberships and operators, each parsed alone --------------------------------------------------
 
 
 def _membership_case(spec, message) -> Case:
@@ -530,6 +436,9 @@ CASES.append(Case("children on different grids", RULE_NODE, "core",
                   r"\(3,\).*\(2,\)"))
 
 
+# -- processing parameters -------------------------------------------------------------------------
+
+
 def _processing_membership_case(parameters, named) -> Case:
     return Case(f"favour:membership {parameters}", RULE_PARAMETER, "processing",
                 lambda s: ("favour:membership", {"INPUT": s.raster(), "OUTPUT": s.earlier("mu.tif"),
@@ -568,6 +477,9 @@ def _weights_case(weights) -> Case:
 CASES += [_weights_case(weights) for weights in ["1, 2", "1, -1, 1", "1, x, 1", "0, 0, 0"]]
 
 
+# -- weights of evidence ---------------------------------------------------------------------------
+
+
 def _evidence_case(name, change, error, message) -> Case:
     """Weights of evidence on the striped evidence, with one thing changed by ``change(scene)``."""
     def make(s: Scene):
@@ -577,12 +489,6 @@ def _evidence_case(name, change, error, message) -> Case:
         kwargs.update(output_table=s.earlier("w.csv"), output_generalised=s.earlier("g.tif"))
         return lambda: evidence_weights(unit_area_km2=CELL_KM2, **kwargs)
     return Case(name, RULE_EVIDENCE, "core", make, error, message)
-
-
-def _geographic(s: Scene) -> dict:
-    subprocess.run(["gdalwarp", "-q", "-t_srs", "EPSG:4326", s.path("e.tif"), s.path("g4326.tif")],
-                   check=True)
-    return {"evidence": s.path("g4326.tif")}
 
 
 CASES += [
@@ -597,7 +503,7 @@ CASES += [
     _evidence_case("categorical codes not whole", lambda s: {"evidence": s.raster(
         "f.tif", np.tile(np.array([1.25, 2.25], np.float32), (20, 10)), cell=CELL)},
         InputError, "categorical evidence needs whole-number class codes"),
-    _evidence_case("geographic grid", _geographic, GridError, "not projected"),
+    _evidence_case("geographic grid", geographic, GridError, "not projected"),
     _evidence_case("polygons as deposits", lambda s: {"deposits": write_vector(
         s.root / "poly.gpkg", ["POLYGON ((500000 1019000, 500500 1019000, 500500 1019500, "
                                "500000 1019000))"], layer="p")},
@@ -667,6 +573,408 @@ CASES += [
 ]
 
 
+# -- tree files and nodes ----------------------------------------------------------------------
+
+
+def _example_case(path, value, message) -> Case:
+    """The example tree with one value changed: refused naming the node's path and the field."""
+    return Case(f"example tree, {'.'.join(map(str, path))} = {value!r}", RULE_NODE, "core",
+                lambda s: partial(Tree.from_dict, changed(example_tree_doc(), path, value)),
+                TreeFileError, message)
+
+
+CASES += [_example_case(path, value, message) for path, value, message in [
+    (("root", "operator", "gamma"), 1.5, r"Favourability: operator.gamma: must be at most 1, got 1.5"),
+    (("root", "children", 0, "children", 1, "membership", "lower"), 80,
+     r"Favourability > Source > Magnetic high: membership 'linear': 'lower' and 'upper' are both 80"),
+    (("root", "children", 1, "children", 3, "membership", "points"), [0, 60, 50, 200],
+     r"Favourability > Pathway > Depth: membership 'trapezoid': points must be ordered"),
+    (("root", "children", 0, "children", 0, "membership", "type"), "fuzzy",
+     r"Favourability > Source > Mafic volcanic host: membership.type: must be one of"),
+    (("root", "children", 0, "operator", "type"), "xor",
+     r"Favourability > Source: operator.type: must be one of"),
+    (("root", "children", 1, "children", 1, "membership", "spread"), "wide",
+     r"Favourability > Pathway > Gravity ridge: membership.spread: must be of type number"),
+]]
+
+
+def _draft_case(path, value, message) -> Case:
+    """The varied tree read as the dock reads it, with one field of the wrong type."""
+    return Case(f"draft, {'.'.join(map(str, path))} = {value!r}", RULE_DRAFT, "core",
+                lambda s: partial(Tree.from_draft, changed(varied_tree_doc(), path, value)),
+                TreeFileError, message)
+
+
+CASES += [_draft_case(path, value, message) for path, value, message in [
+    (("root", "children", 0, "name"), 7, r"Favourability > \(child 0\): 'name' must be text, got 7"),
+    (("root", "children", 1, "children"), "abc", r"> Pathway: 'children' must be a list"),
+    (("root", "children", 1, "children"), {"a": 1}, r"> Pathway: 'children' must be a list"),
+    (("root", "children", 0, "children", 0, "proxy"), [1],
+     r"Favourability > Source > Mafic host: 'proxy' must be an object"),
+    (("root", "children", 0, "children", 0, "proxy", "band"), "1",
+     r"Favourability > Source > Mafic host: 'proxy.band' must be a whole number or null"),
+    (("root", "children", 0, "weight"), True, r"Favourability > Source: 'weight' must be a number"),
+]]
+
+
+def _absurd_case(expected: str) -> Case:
+    """Numbers that pass the schema but no computation should meet: a problem at their node."""
+    return Case(f"absurd number: {expected}", RULE_HUGE_NUMBER, "core", lambda s: absurd_numbers().compile,
+                TreeFileError, r"(?m)^  - " + re.escape(expected))
+
+
+CASES += [_absurd_case(expected) for expected in [
+    "Favourability > Source > Mafic host: weight must be at most 1e+15, got 1e+308",
+    "Favourability > Source > Gravity: membership.centre is 1e+308",
+    "Favourability > Pathway: operator.gamma is (an integer of about 401 digits)",
+    "grid: the extent spans inf columns of cell_size 1e-300",
+]]
+
+CASES += [
+    Case("absurd number in a tree file", RULE_HUGE_NUMBER, "core",
+         lambda s: partial(Tree.from_dict, changed(
+             varied_tree_doc(), ("root", "children", 0, "children", 1, "membership", "centre"), 1e308)),
+         TreeFileError, r"Source > Gravity: membership\.centre is 1e\+308"),
+    Case("two children with one name", RULE_SIBLINGS, "core",
+         lambda s: partial(Tree.from_dict, changed(example_tree_doc(), ("root", "children", 1, "name"),
+                                                   "Source")),
+         TreeFileError, "two children are named 'Source'"),
+    Case("tree from a newer Favour", RULE_TREE, "core",
+         lambda s: partial(Tree.from_dict, changed(example_tree_doc(), ("version",), 2)),
+         TreeFileError, r"version 2 is newer than this Favour reads \(version 1\)"),
+    Case("invalid JSON names line and column", RULE_TREE, "core",
+         lambda s: partial(Tree.load, s.text(
+             "broken.json", '{\n  "format": "favour-tree",\n  "version": 1\n  "root": {}\n}\n')),
+         TreeFileError, "not valid JSON: Expecting ',' delimiter at line 4, column 3"),
+    Case("JSON of another kind", RULE_TREE, "core",
+         lambda s: partial(Tree.from_dict, {"type": "FeatureCollection"}), TreeFileError,
+         "not a Favour tree file"),
+    Case("tree 5000 levels deep", RULE_DEEP, "core",
+         lambda s: partial(Tree.from_dict, {"format": "favour-tree", "version": 1, "root": node_chain(5000)}),
+         TreeFileError, r"more than 32 levels deep here"),
+    Case("tree 40 levels deep names a shortened path", RULE_DEEP, "core",
+         lambda s: partial(Tree.from_dict, json.loads(deep_tree_text(40))), TreeFileError,
+         r"L > L > L > L > L > L > … \d+ more … > L > L: .*32 levels"),
+    Case("draft 5000 levels deep", RULE_DEEP, "core",
+         lambda s: partial(Tree.from_draft, {"format": "favour-tree", "version": 1,
+                                             "root": node_chain(5000)}),
+         TreeFileError, r"more than 32 levels deep"),
+    Case("one node more than allowed", RULE_DEEP, "core",
+         lambda s: partial(Tree.from_dict, tree_doc([leaf(f"Leaf {i}", "a.tif", {"type": "identity"})
+                                                     for i in range(MAX_NODES)])),
+         TreeFileError, rf"Favourability: with its {MAX_NODES} children the tree has more than "
+                        rf"{MAX_NODES} nodes"),
+]
+
+
+# -- files Favour reads: never read when not a plain file, never past a limit, strictly UTF-8 JSON --
+
+
+CASES += [
+    Case("tree file missing", RULE_NOT_A_FILE, "core",
+         lambda s: partial(Tree.load, s.path("missing.json")), TreeFileError,
+         r"missing\.json does not exist"),
+    Case("folder as tree file", RULE_NOT_A_FILE, "core",
+         lambda s: partial(Tree.load, s.folder("folder.favour.json")), TreeFileError,
+         r"folder\.favour\.json is a folder, not a file"),
+    Case("FIFO as tree file, refused without blocking", RULE_NOT_A_FILE, "core",
+         lambda s: read_fifo(s, "pipe.favour.json", Tree.load), TreeFileError,
+         r"is not a regular file \(a FIFO, socket or device\)"),
+    Case("FIFO as lineage, refused without blocking", RULE_NOT_A_FILE, "core",
+         lambda s: read_fifo(s, "out.tif.lineage.json", read_lineage, s.root / "out.tif"), LineageError,
+         "is not a regular file"),
+    Case("FIFO as tree file (cli)", RULE_NOT_A_FILE, "cli",
+         lambda s: ["evaluate", s.fifo("pipe.favour.json"), "-o", s.earlier("fav.tif")], TreeFileError,
+         r"(?m)^error: tree file .*is not a regular file"),
+    Case("50 MB tree file, refused by its size in under 2 s", RULE_FILE_SIZE, "core",
+         lambda s: within(2.0, partial(Tree.load, huge_tree_file(s))), TreeFileError,
+         r"huge\.favour\.json is 50 MiB; Favour reads a tree file of at most 8 MiB"),
+    Case("9 MiB of tree text", RULE_FILE_SIZE, "core",
+         lambda s: partial(Tree.from_json, "[" + " " * (9 * MIB) + "]"), TreeFileError,
+         r"Favour reads at most 8 MiB"),
+    Case("tree file nested 5000 deep", RULE_NESTING, "core",
+         lambda s: partial(Tree.load, s.text("deep.favour.json", deep_tree_text(5000))), TreeFileError,
+         r"deep\.favour\.json nests arrays and objects more than 100 levels deep \(at line 1, column \d+\)"),
+    Case("tree file nested 5000 deep (cli)", RULE_NESTING, "cli",
+         lambda s: ["evaluate", s.text("deep.favour.json", deep_tree_text(5000)), "-o", s.earlier("fav.tif")],
+         TreeFileError, r"(?m)^error: tree file .*nests arrays and objects more than 100 levels deep"),
+    Case("bytes that are not UTF-8", RULE_TEXT, "core",
+         lambda s: partial(Tree.load, not_utf8_tree_file(s)), TreeFileError,
+         rf"is not UTF-8 text: the byte 0xe9 at byte offset {NOT_UTF8_AT} "
+         rf"\(line {NOT_UTF8_LINE}, column \d+\)"),
+    *[Case(f"{token} in a tree file", RULE_TEXT, "core",
+           lambda s, token=token: partial(Tree.load, varied_tree_file(
+               s, "nan.favour.json", '"gamma": 0.8', f'"gamma": {token}')),
+           TreeFileError, rf"nan\.favour\.json cannot be read: .* \(at line {GAMMA_LINE}, column \d+\)")
+      for token in ["NaN", "Infinity", "-Infinity", "1e999"]],
+    Case("a 5000-digit integer in a tree file", RULE_TEXT, "core",
+         lambda s: partial(Tree.load, varied_tree_file(s, "digits.favour.json", '"weight": 2',
+                                                       '"weight": ' + "7" * 5000, indent=None)),
+         TreeFileError, r"an integer of 5000 digits is beyond the range of a float"),
+    Case("a 5000-digit integer in a lineage", RULE_TEXT, "core",
+         lambda s: lineage_text(s, '{"format": "favour-lineage", "size": ' + "1" * 5000 + "}"),
+         LineageError, r"an integer of 5000 digits"),
+    Case("a lone surrogate in a name", RULE_TEXT, "core",
+         lambda s: partial(Tree.from_dict, with_surrogate_name()), TreeFileError,
+         r"Favourability > Source > Mafic \\udc80: name: holds a lone UTF-16 surrogate"),
+    Case("a lone surrogate in stored text", RULE_TEXT, "core",
+         lambda s: partial(Tree.from_draft_json, '{"root": {"name": "\\ud800"}}'), TreeFileError,
+         r"root\.name holds a lone UTF-16 surrogate"),
+    Case("a lineage edited by hand", RULE_DAMAGED_RECORD, "core", damaged_lineage, LineageError,
+         r"(?s)^(?=.*out\.tif\.lineage\.json)(?=.*inputs\[0\]\.files\[0\]\.sha256: must be of type "
+         r"string, got 3)(?=.*grid: 'width' is required)"),
+    Case("a weights table with text for a weight", RULE_DAMAGED_RECORD, "core",
+         lambda s: partial(WeightsTable.from_dict, changed(
+             written_weights(s)["table"], ("rows", 0, "w_plus"), "high")),
+         ParameterError, r"rows\[0\]\.w_plus: must be of type number or null"),
+    Case("a weights table's lineage edited by hand", RULE_DAMAGED_RECORD, "core", damaged_weights_file,
+         LineageError,
+         r"t\.csv\.lineage\.json is damaged.*\n.*table\.rows\[0\]\.s_w_plus: must be of type number"),
+    *[Case(f"tree stored in a project: {label}", RULE_PROJECT_TREE, "project", lambda s, text=text: text,
+           TreeFileError, "The Favour dock stays empty: .*" + message)
+      for label, text, message in [
+          ("a name that is a number", '{"root": {"name": 7}}', r"\(root\): 'name' must be text, got 7"),
+          ("nested 5000 deep", deep_tree_text(5000),
+           r"nests arrays and objects more than 100 levels deep \(at line 1, column \d+\)"),
+          ("NaN", '{"root": {"name": "R", "weight": NaN}}',
+           r"NaN is not a JSON number .*\(at line 1, column 34\)"),
+          ("children that are text", '{"root": {"name": "R", "children": "abc"}}',
+           r"R: 'children' must be a list, got 'abc'"),
+          ("cut short", "[1, 2", r"is not valid JSON: .* at line 1, column 6"),
+          ("just text", '"just text"', r"a stored tree must be a JSON object with a 'root' object")]],
+]
+
+
+# -- score sheets: every cell checked, the file, row and column named, nothing changed ------------
+
+
+def _sheet(name, change, message, rule=RULE_SHEET) -> Case:
+    """E1's sheet broken by ``change``: refused naming file, row and column; the tree unchanged."""
+    return Case(f"sheet: {name}", rule, "core", bad_sheet(change), SheetError, message)
+
+
+CASES += [
+    _sheet("unknown node", sheet_edit(SPLAYS, "membership.lower", node="Favourability > Pathway > Splay"),
+           r"E1\.csv row 16, column 'node': unknown node 'Favourability > Pathway > Splay'"),
+    _sheet("item the node lacks", sheet_edit(SPLAYS, "membership.lower", item="membership.spread"),
+           r"E1\.csv row 16, column 'item': node 'Favourability > Pathway > Splays' has no item "
+           r"'membership\.spread'"),
+    _sheet("item on the root", sheet_edit(SOURCE, "importance", node="Favourability"),
+           r"E1\.csv row 7, column 'item': node 'Favourability' has no item 'importance': it has nothing "
+           r"to score"),
+    _sheet("importance above 9", sheet_edit(SOURCE, "importance", value="12"),
+           r"E1\.csv row 7, column 'value': importance must lie between 1 and 9, got 12"),
+    _sheet("importance below 1", sheet_edit(SOURCE, "importance", value="0.5"),
+           r"E1\.csv row 7, column 'value': importance must lie between 1 and 9, got 0\.5"),
+    _sheet("negative weight", sheet_edit(COVER, "weight", value="-1"),
+           r"E1\.csv row 35, column 'value': weight must be 0 or more, got -1"),
+    _sheet("not a number", sheet_edit(KEEL, "membership.midpoint", value="two"),
+           r"E1\.csv row 9, column 'value': 'two' is not a number"),
+    _sheet("decimal comma", sheet_edit(KEEL, "membership.midpoint", value="2,5"),
+           r"E1\.csv row 9, column 'value': '2,5' is not a number \(use a decimal point\)"),
+    _sheet("NaN", sheet_edit(KEEL, "membership.midpoint", value="nan"),
+           r"E1\.csv row 9, column 'value': must be a finite number, got 'nan'"),
+    _sheet("infinity", sheet_edit(KEEL, "membership.midpoint", value="-inf"),
+           r"E1\.csv row 9, column 'value': must be a finite number, got '-inf'"),
+    _sheet("μ above 1", sheet_edit(PILE, "membership.scores.1", value="1.5"),
+           r"E1\.csv row 12, column 'value': membership\.scores\.1 must lie between 0 and 1, got 1\.5"),
+    _sheet("spread 0", sheet_edit(HINGES, "membership.spread", value="0"),
+           r"E1\.csv row 26, column 'value': membership\.spread must be above 0, got 0"),
+    _sheet("slope 0", sheet_edit(KEEL, "membership.slope", value="0"),
+           r"E1\.csv row 10, column 'value': membership\.slope must not be 0"),
+    _sheet("duplicate row", duplicate_row(KEEL, "membership.midpoint"),
+           rf"E1\.csv row {LAST_ROW + 1}, column 'item': duplicate of .*E1\.csv row 9 "
+           r"\(same expert, node and item\)"),
+    _sheet("missing expert id", sheet_edit(KEEL, "membership.midpoint", expert=""),
+           r"E1\.csv row 9, column 'expert': missing expert id"),
+    _sheet("range low above high", sheet_edit(SPLAYS, "membership.lower", low="900", high="700"),
+           r"E1\.csv row 16, column 'low': low 900 is above high 700"),
+    _sheet("range with one end", sheet_edit(SPLAYS, "membership.lower", low="700"),
+           r"E1\.csv row 16, column 'high': a range needs both low and high"),
+    _sheet("range on an item that takes none", sheet_edit(SOURCE, "importance", low="5", high="8"),
+           r"E1\.csv row 7, column 'low': item 'importance' takes no range"),
+    _sheet("value outside its range", sheet_edit(SPLAYS, "membership.lower", low="100", high="500"),
+           r"E1\.csv row 16, column 'value': 800 lies outside its own range 100 to 500"),
+    _sheet("range without a value", sheet_edit(SPLAYS, "membership.lower", value="", low="700", high="900"),
+           r"E1\.csv row 16, column 'value': a range needs a value"),
+    _sheet("confidence not low/medium/high", sheet_edit(KEEL, "membership.midpoint", confidence="sure"),
+           r"E1\.csv row 9, column 'confidence': 'sure' is not low, medium or high"),
+    _sheet("siblings on two scales", sheet_edit(COVER, "weight", item="importance", value="9"),
+           r"E1\.csv row 38, column 'item': 'weight' for 'Favourability > Preservation > Granite', but a "
+           r"sibling is scored by 'importance' \(.*E1\.csv row 35\)"),
+    _sheet("invalid membership from one expert", sheet_edit(SPLAYS, "membership.upper", value="800"),
+           r"E1\.csv row 16, column 'value': with E1's values the membership of "
+           r"'Favourability > Pathway > Splays' is invalid: .*'lower' and 'upper' are both 800",
+           RULE_SHEET_MEMBERSHIP),
+    _sheet("every weight 0",
+           then(sheet_edit(COVER, "weight", value="0"), sheet_edit(GRANITE, "weight", value="0")),
+           r"E1\.csv row 35, column 'value': E1 weights every child of 'Favourability > Preservation' 0",
+           RULE_SHEET_MEMBERSHIP),
+    _sheet("wrong header", lambda text: text.replace("expert,node,item,value,", "expert,node,item,score,"),
+           r"E1\.csv row 6: not a score sheet: the header row lacks column\(s\) 'value'", RULE_SHEET_FILE),
+    _sheet("not a sheet", lambda text: "name,colour\nkeel,blue\n",
+           r"E1\.csv row 1: not a score sheet: the header row lacks column\(s\) 'expert', 'node'",
+           RULE_SHEET_FILE),
+    _sheet("only comments",
+           lambda text: "".join(line + "\n" for line in text.split("\n") if line.startswith("#")),
+           r"E1\.csv: not a score sheet: no header row", RULE_SHEET_FILE),
+    _sheet("non-UTF-8 bytes", latin1_note,
+           r"E1\.csv row 9: byte 0xe0 at position \d+ is not UTF-8; save the sheet as CSV with UTF-8",
+           RULE_SHEET_FILE),
+    _sheet("empty file", lambda text: "", r"E1\.csv: the file is empty", RULE_SHEET_FILE),
+    _sheet("blank lines only", lambda text: "\n \n\n", r"E1\.csv: the file is empty", RULE_SHEET_FILE),
+    Case("sheet: more than twenty problems, twenty listed", RULE_SHEET, "core", many_bad_rows, SheetError,
+         r"problem\(s\); nothing was changed\):\n  - [^\n]*row 7, column[^\n]*\n(?:  - [^\n]*\n){19}"
+         r"  - … and \d+ more\s*$"),
+    Case("sheets: problems in two files, reported together", RULE_SHEET, "core", bad_in_two_files,
+         SheetError, r"E1\.csv row 7, column 'value'(?s:.*)E2\.csv row 8, column 'item': duplicate of "
+                     r".*E1\.csv row 8"),
+    Case("sheet: .xlsx that is not a workbook", RULE_SHEET_FILE, "core",
+         lambda s: sheet_file(s, "E1.xlsx", "expert,node\n"), SheetError, r"E1\.xlsx: not an XLSX workbook"),
+    Case("sheet: a .txt file", RULE_SHEET_FILE, "core", lambda s: sheet_file(s, "E1.txt", "x"), SheetError,
+         r"E1\.txt: a score sheet is a \.csv or \.xlsx file"),
+    Case("sheet: missing", RULE_SHEET_FILE, "core", lambda s: sheet_file(s, "missing.csv", None), SheetError,
+         r"missing\.csv: no such file"),
+    Case("write a sheet as .ods", RULE_SHEET_WRITE, "core",
+         lambda s: partial(write_sheet, s.root / "E1.ods", scored_tree(), "E1"), ParameterError,
+         r"\.csv or \.xlsx, got 'E1\.ods'"),
+    Case("export sheets for repeated ids", RULE_SHEET_WRITE, "core",
+         lambda s: partial(export_sheets, scored_tree(), s.root, ["E1", "E1"]), ParameterError,
+         "repeated: E1"),
+    Case("export a sheet for an id starting with #", RULE_SHEET_WRITE, "core",
+         lambda s: partial(export_sheets, scored_tree(), s.root, ["#1"]), ParameterError,
+         "not start with '#'"),
+    Case("score sheets over filled sheets", RULE_SHEET_OVER, "core", sheets_over_sheets, OutputError,
+         r"E1\.csv already exists and may hold an expert's scores"),
+]
+
+
+# -- the workshop: rounds, expert weights, pooled values, pairwise weights ---------------------------
+
+
+CASES += [Case(f"expert weights {weights!r}", RULE_EXPERT_WEIGHTS, "core",
+               lambda s, weights=weights: partial(check_expert_weights, ("E1", "E2"), weights),
+               ParameterError, message) for weights, message in [
+    ({"E1": 1, "E2": 1, "E9": 1}, r"name E9, who gave no scores"),
+    ({"E1": 1}, r"lack E2"),
+    ({"E1": -1, "E2": 1}, r"expert weight of E1 must be a finite number >= 0, got -1"),
+    ({"E1": float("nan"), "E2": 1}, r"expert weight of E1 must be a finite number >= 0, got nan"),
+    ({"E1": 0, "E2": 0}, r"all 0"),
+]]
+
+CASES += [
+    Case("a round added out of turn", RULE_ROUND, "core",
+         lambda s: partial(Workshop((Scores({}, ()), Scores({}, (), round_number=2))).add_round,
+                           Scores({}, ())),
+         ParameterError, "must be round 3, got round 1"),
+    Case("pooled values that make an invalid membership", RULE_SHEET_MEMBERSHIP, "core", invalid_pool,
+         ParameterError, r"^Favourability > Pathway > Splays: these values make an invalid membership "
+                          r"\(lower = 450, upper = 450\)"),
+    Case("three weights for two children", RULE_NODE_WEIGHTS, "core", weights_into_source([1, 2, 3]),
+         ParameterError, r"Favourability > Source: 2 children but 3 weights"),
+    Case("a negative weight for a child", RULE_NODE_WEIGHTS, "core",
+         weights_into_source({"Keel": -1, "Pile": 1}),
+         ParameterError, r"Favourability > Source > Keel: weight must be"),
+    Case("weights all 0 for a node", RULE_NODE_WEIGHTS, "core", weights_into_source([0, 0]),
+         ParameterError, r"Favourability > Source: the weights are all 0"),
+]
+
+CASES += [Case(f"pairwise matrix: {name}", RULE_MATRIX, "core",
+               lambda s, matrix=matrix: partial(pairwise_weights, matrix), ParameterError, message)
+          for name, matrix, message in [
+    ("not square", [[1, 2, 3], [0.5, 1, 2]], r"must be square, got shape \(2, 3\)"),
+    ("ragged", [[1, 2], [0.5]], r"square table of numbers"),
+    ("text", [["a", "b"], ["c", "d"]], r"square table of numbers"),
+    ("one element", [[1]], r"at least 2 elements, got 1"),
+    ("empty", np.ones((0, 0)), r"at least 2 elements, got 0"),
+    ("too many", np.ones((16, 16)), r"tabulated up to n = 15"),
+    ("zero", [[1, 0], [0, 1]], r"finite and positive; entry \(1, 2\) is 0\.0"),
+    ("negative", [[1, -3], [-1 / 3, 1]], r"finite and positive; entry \(1, 2\) is -3\.0"),
+    ("nan", [[1, float("nan")], [1, 1]], r"finite and positive; entry \(1, 2\) is nan"),
+    ("inf", [[1, 2], [float("inf"), 1]], r"finite and positive; entry \(2, 1\) is inf"),
+    ("diagonal", [[1, 3, 5], [1 / 3, 2, 3], [1 / 5, 1 / 3, 1]],
+     r"diagonal .* must be 1 .*entry \(2, 2\) is 2\.0"),
+    ("not reciprocal", [[1, 3, 5], [1 / 3, 1, 3], [1 / 5, 3, 1]],
+     r"not reciprocal: entry \(2, 3\) is 3 and entry \(3, 2\) is 3, but it must be 1/3 = 0\.3333"),
+    ("two decimals", [[1, 7], [0.14, 1]], r"not reciprocal: entry \(1, 2\) is 7 and entry \(2, 1\) is 0\.14"),
+]]
+
+CASES += [Case(f"pairwise judgements: {name}", RULE_JUDGEMENTS, "core",
+               lambda s, names=names, judgements=judgements: partial(
+                   matrix_from_judgements, names, judgements),
+               ParameterError, message) for name, names, judgements, message in [
+    ("a pair not judged", ["a", "b", "c"], [("a", "b", 3), ("a", "c", 5)], r"1 pair\(s\) not judged: b / c"),
+    ("a pair judged twice", ["a", "b"], [("a", "b", 3), ("b", "a", 1 / 3)],
+     r"judgement 2 judges 'b' against 'a' again"),
+    ("an element against itself", ["a", "b"], [("a", "a", 3)], r"judgement 1 compares 'a' with itself"),
+    ("above 9", ["a", "b"], [("a", "b", 12)], r"from 1/9 to 9 on Saaty's scale, got 12"),
+    ("below 1/9", ["a", "b"], [("a", "b", 0.1)], r"from 1/9 to 9 on Saaty's scale, got 0\.1"),
+    ("an unknown element", ["a", "b"], [("a", "z", 3)], r"judgement names 'z', which is not one of: a, b"),
+    ("repeated names", ["a", "a"], [], r"repeated: a"),
+    ("one element", ["a"], [], r"at least 2 elements, got 1"),
+]]
+
+
+# -- the uncertainty: realisations drawn from the experts, sensitivity variants ----------------------
+
+
+def _sampler_case(kwargs, message, rule=RULE_SAMPLER) -> Case:
+    """sample_trees on the scored tree and three experts, with one argument wrong."""
+    args = {"n": 3, "seed": 0, **kwargs}
+    n, seed = args.pop("n"), args.pop("seed")
+    return Case(f"sampler {kwargs!r}", rule, "core",
+                lambda s: partial(sample_trees, scored_tree(), three_experts(), n, seed, **args),
+                ParameterError, message)
+
+
+CASES += [
+    _sampler_case({"n": 0}, r"number of realisations must be a whole number from 1, got 0"),
+    _sampler_case({"seed": -1}, r"seed must be a whole number >= 0, got -1"),
+    _sampler_case({"seed": 1.5}, r"seed must be a whole number >= 0, got 1\.5"),
+    _sampler_case({"mode": "bootstrap"}, r"sampling mode must be one of experts, ranges, got 'bootstrap'"),
+    _sampler_case({"statistic": "mode"}, r"statistic must be one of pool, mean, median, trimmed, got 'mode'"),
+    _sampler_case({"expert_weights": {"E1": 1, "E2": 1, "E3": 1, "E7": 1}}, r"name E7, who gave no scores",
+                  RULE_EXPERT_WEIGHTS),
+    Case("a membership no draw can make valid", RULE_NO_VALID_DRAW, "core",
+         lambda s: partial(sample_trees, scored_tree(), scores_of({"E1": {MESH: {
+             "membership.points[0]": (0, 500, 600), "membership.points[1]": (300, 100, 200)}}}),
+             5, seed=1, mode="ranges"),
+         ParameterError,
+         rf"^Favourability > Pathway > Mesh: no valid draw of its membership in {MAX_DRAWS} tries"),
+    *[Case(f"sensitivity fraction {fraction!r}", RULE_SENSITIVITY, "core",
+           lambda s, fraction=fraction: partial(sensitivity_variants, scored_tree(), fraction),
+           ParameterError, "fraction between 0 and 1")
+      for fraction in [0, 1, 1.5, -0.1, float("nan"), True, "0.1"]],
+]
+
+
+def _mc_call(scene: Scene, **change) -> Callable:
+    """A Monte Carlo of the small workshop in the scene, with one argument changed."""
+    tree, _, sheets = small_workshop(scene.root)
+    outputs = {name: scene.earlier(f"mc-{name}.tif") for name in MC_OUTPUTS}
+    kwargs = {"outputs": outputs, "n": 4, "seed": 1, **change}
+    if callable(kwargs["outputs"]):
+        kwargs["outputs"] = kwargs["outputs"](scene, outputs)
+    return partial(monte_carlo, tree, sheets, **kwargs)
+
+
+CASES += [
+    Case("Monte Carlo output named oddly", RULE_MC_REQUEST, "core",
+         lambda s: _mc_call(s, outputs=lambda s, o: {"median": o["p50"]}), ParameterError,
+         r"Monte Carlo outputs are named mean, std, p10, p50, p90, robustness; got median"),
+    Case("Monte Carlo top area of 0 %", RULE_MC_REQUEST, "core", lambda s: _mc_call(s, top_percent=0),
+         ParameterError, r"the top area must be a percentage between 0 and 100 \(10 for the top 10 %\), "
+                         r"got 0"),
+    Case("Monte Carlo output over a proxy", RULE_OVER_INPUT, "core",
+         lambda s: _mc_call(s, outputs=lambda s, o: {**o, "mean": str(s.root / "mag.tif")}),
+         OutputError, r"mag\.tif \(the mean raster\) is a file this job reads: the layer of "
+                      r"Favourability > Source > Mag"),
+    Case("sensitivity table not CSV", RULE_MC_REQUEST, "core",
+         lambda s: partial(sensitivity, small_workshop(s.root)[0], str(s.out / "s.txt")), ParameterError,
+         r"the sensitivity table .*s\.txt must end in \.csv"),
+]
+
+
 # -- running a case ------------------------------------------------------------------------
 
 
@@ -679,7 +987,7 @@ def _limited():
 def _check(case: Case, made, request) -> None:
     """Run what the case made and check the error and the message the user gets."""
     if case.via.startswith("cli"):
-        result = run_cli(*made, preexec_fn=_limited if case.via == "cli-limited" else None)
+        result = run_cli(*made, preexec_fn=_limited if case.via == "cli-limited" else None, timeout=120)
         assert result.returncode == 2, result.stderr
         assert "error: " in result.stderr and re.search(case.message, result.stderr), result.stderr
         assert "Traceback" not in result.stderr, result.stderr
@@ -691,9 +999,41 @@ def _check(case: Case, made, request) -> None:
         algorithm, parameters = made
         with pytest.raises(QgsProcessingException, match=case.message):
             processing.run(algorithm, parameters, feedback=QgsProcessingFeedback())
+    elif case.via == "project":
+        _check_project(made, case.message, request.getfixturevalue("qgis_iface"))
     else:
         with pytest.raises(case.error, match=case.message):
             made()
+
+
+def _check_project(text: str, message: str, iface) -> None:
+    """A project storing ``text`` as its tree: the dock stays empty and the message bar says why.
+
+    A sound tree stored afterwards is shown: the refusal leaves nothing stuck.
+    """
+    from qgis.core import Qgis, QgsProject
+
+    from favour_plugin.gui.controller import TreeController
+    from favour_plugin.gui.project_store import SCOPE, ProjectStore
+
+    project = QgsProject()
+    controller = TreeController()
+    store = ProjectStore(controller, project, iface)
+    bar = iface.messageBar()
+    try:
+        controller.reset(Tree.new("Before"))
+        for level in bar.messages:
+            bar.messages[level] = []
+        project.writeEntry(SCOPE, "tree", text)
+        store.read()
+        assert controller.tree is None, text
+        shown = "\n".join(bar.get_messages(Qgis.Critical))
+        assert re.search(message, shown), shown
+        project.writeEntry(SCOPE, "tree", Tree.from_dict(varied_tree_doc()).to_json())
+        store.read()
+        assert controller.tree is not None and controller.tree.name == "Test tree"
+    finally:
+        store.disconnect_all()
 
 
 @pytest.mark.parametrize("case", CASES, ids=lambda case: case.id)
@@ -724,42 +1064,22 @@ def test_the_help_page_states_every_rule():
     assert missing == []
 
 
+def test_the_sheet_rows_the_cases_break_are_where_the_exporter_puts_them(tmp_path):
+    """The rows named in ROWS are where the exporter puts those items (tree order, header row 6)."""
+    (path,) = export_sheets(scored_tree(), tmp_path, ["E1"])
+    rows = list(csv.reader(path.read_text(encoding="utf-8").split("\n")))
+    assert rows[5][:4] == ["expert", "node", "item", "value"]
+    for (node, item), number in ROWS.items():
+        assert rows[number - 1][1:3] == [node, item]
+    assert len([r for r in rows if r]) == LAST_ROW
+
+
 # -- faults that take more than one call ------------------------------------------------------
-
-
-class CancelAt(Feedback):
-    """Feedback that answers "cancelled" from its ``at``-th question on, and counts the questions."""
-
-    def __init__(self, at: int | None = None) -> None:
-        super().__init__()
-        self.at = at
-        self.asked = 0
-
-    def is_cancelled(self) -> bool:
-        """Count the question; cancel from the ``at``-th on."""
-        self.asked += 1
-        return self.at is not None and self.asked >= self.at
-
-
-def _tall_scene(scene: Scene) -> Tree:
-    """A tree over a raster three windows tall, a vector proxy and a component raster."""
-    rng = np.random.default_rng(4)
-    scene.raster("tall.tif", rng.normal(50, 20, (600, 300)).astype(np.float32))
-    write_vector(scene.root / "faults.gpkg", [f"LINESTRING ({ORIGIN[0] + 500} {ORIGIN[1]}, "
-                                              f"{ORIGIN[0] + 9000} {ORIGIN[1] - 50000})"], layer="faults")
-    doc = tree_doc([
-        {"name": "Source", "component": "source", "operator": {"type": "or"},
-         "children": [leaf("Tall", "tall.tif", {"type": "linear", "lower": 20, "upper": 90})]},
-        {"name": "Pathway", "component": "pathway", "operator": {"type": "and"},
-         "children": [leaf("Faults", "faults.gpkg", {"type": "linear", "lower": 3000, "upper": 0},
-                           measure="distance")]},
-    ], grid={"reference": "tall.tif"})
-    return Tree.load(scene.tree_file(doc))
 
 
 def _cancel_jobs(scene: Scene) -> dict[str, Callable[[Feedback], object]]:
     """Each job that writes, as a call taking a feedback; outputs planted as earlier files."""
-    tree = _tall_scene(scene)
+    tree = tall_scene(scene)
     output, nodes = scene.earlier("fav.tif"), str(scene.out / "nodes")
     scene.earlier("nodes/source.tif")
     _, deposits = scene.evidence()
@@ -849,21 +1169,6 @@ def test_a_cancel_in_processing_changes_nothing(case, tmp_path, favour_provider)
     assert snapshot(tmp_path) == before and leftovers(tmp_path) == []
 
 
-class Gate(Feedback):
-    """Feedback that holds the job at its first progress report until ``release`` is set."""
-
-    def __init__(self) -> None:
-        super().__init__()
-        self.reached = threading.Event()
-        self.release = threading.Event()
-
-    def set_progress(self, fraction: float) -> None:
-        """Stop here once, until released."""
-        if fraction > 0.2 and not self.reached.is_set():
-            self.reached.set()
-            assert self.release.wait(60)
-
-
 def test_two_runs_aimed_at_one_output_at_once(tmp_path):
     """While one run writes an output, a second aimed at it is refused at once, naming the first.
 
@@ -871,7 +1176,7 @@ def test_two_runs_aimed_at_one_output_at_once(tmp_path):
     then completes.
     """
     scene = Scene(tmp_path)
-    tree = _tall_scene(scene)
+    tree = tall_scene(scene)
     output = scene.earlier("fav.tif")
     gate = Gate()
     outcome = {}
@@ -898,34 +1203,15 @@ def test_two_runs_aimed_at_one_output_at_once(tmp_path):
     assert leftovers(tmp_path) == []
 
 
-def _slow_tree(scene: Scene) -> str:
-    """A tree file over a raster big enough that a run takes a few seconds."""
-    rng = np.random.default_rng(8)
-    big = write_raster(scene.root / "big.tif", rng.random((3000, 3000)).astype(np.float32))
-    return write_tree(scene.root / "slow.json", tree_doc([
-        leaf("A", big, {"type": "linear", "lower": 0, "upper": 1}),
-        leaf("B", big, {"type": "gaussian", "centre": 0.5, "spread": 0.2})], {"type": "gamma", "gamma": 0.5}))
-
-
-def _start_cli(*args) -> subprocess.Popen:
-    """Start ``python -m favour_plugin`` and return it once it reports its first progress."""
-    process = subprocess.Popen([sys.executable, "-m", "favour_plugin", *map(str, args)], cwd=ROOT,
-                               stderr=subprocess.PIPE, stdout=subprocess.PIPE, text=True)
-    for line in process.stderr:
-        if line.strip().endswith("%") and not line.strip().startswith("0%"):
-            break
-    return process
-
-
 @pytest.mark.slow
 @pytest.mark.parametrize("signum", [signal.SIGINT, signal.SIGTERM], ids=["Ctrl-C", "SIGTERM"])
 def test_an_interrupt_from_the_terminal_changes_nothing(signum, tmp_path):
     """Ctrl-C or SIGTERM part-way: exit 130, the earlier output as it was, nothing left behind."""
     scene = Scene(tmp_path)
-    tree = _slow_tree(scene)
+    tree = slow_tree(scene)
     output = scene.earlier("fav.tif")
     before = snapshot(tmp_path)
-    process = _start_cli("evaluate", tree, "-o", output, "--nodes", scene.out / "nodes")
+    process = start_cli("evaluate", tree, "-o", output, "--nodes", scene.out / "nodes")
     process.send_signal(signum)
     rest = process.communicate(timeout=120)[1]
     assert process.returncode == 130, rest
@@ -942,9 +1228,9 @@ def test_what_a_killed_run_leaves_is_tidied_by_the_next(tmp_path):
     completes.
     """
     scene = Scene(tmp_path)
-    tree = _slow_tree(scene)
+    tree = slow_tree(scene)
     output = scene.earlier("fav.tif")
-    process = _start_cli("evaluate", tree, "-o", output)
+    process = start_cli("evaluate", tree, "-o", output)
     process.kill()
     process.communicate(timeout=60)
     assert leftovers(tmp_path), "a killed run leaves its temporary files"

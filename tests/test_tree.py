@@ -1,4 +1,7 @@
-"""The tree file: schema checks against the jsonschema reference, messages, round trips."""
+"""The tree file: schema checks against the jsonschema reference, round trips, the plan.
+
+What a bad tree file is refused with is in the table of tests/test_refusals.py.
+"""
 
 import copy
 import json
@@ -8,50 +11,23 @@ import jsonschema
 import numpy as np
 import pytest
 
-from favour_plugin.core.errors import TreeFileError
 from favour_plugin.core.schema import SCHEMA_DIR, Validator, load_validator
 from favour_plugin.core.tree import Tree
+from tests.helpers import example_tree_doc
 
 SCHEMA = json.loads((SCHEMA_DIR / "tree-v1.schema.json").read_text(encoding="utf-8"))
 
 
-def example() -> dict:
-    """The minimum-contract example of the tree file, with one of every membership type."""
-    return {
-        "format": "favour-tree", "version": 1, "name": "Example",
-        "grid": {"reference": "layers/magnetics.tif"},
-        "root": {"name": "Favourability", "operator": {"type": "gamma", "gamma": 0.9},
-                 "children": [
-            {"name": "Source", "component": "source", "operator": {"type": "or"}, "rationale": "r",
-             "children": [
-                 {"name": "Mafic volcanic host", "proxy": {"path": "layers/litho.tif", "band": 1},
-                  "membership": {"type": "categories", "scores": {"3": 0.9, "5": 0.6}, "default": 0.05},
-                  "weight": 1.0, "rationale": "r"},
-                 {"name": "Magnetic high", "proxy": {"path": "layers/magnetics.tif"},
-                  "membership": {"type": "linear", "lower": 10, "upper": 80}}]},
-            {"name": "Pathway", "component": "pathway",
-             "operator": {"type": "weighted_mean", "nodata": "ignore"}, "children": [
-                 {"name": "Near faults",
-                  "proxy": {"path": "layers/faults.gpkg", "layer": "faults", "measure": "distance"},
-                  "membership": {"type": "logistic", "midpoint": 500, "slope": -0.01}, "weight": 2},
-                 {"name": "Gravity ridge", "proxy": {"path": "layers/gravity.tif"},
-                  "membership": {"type": "gaussian", "centre": 2, "spread": 1.5}},
-                 {"name": "Arsenic", "proxy": {"path": "layers/arsenic.tif"},
-                  "membership": {"type": "piecewise", "points": [[5, 0], [20, 0.7], [60, 1]]}},
-                 {"name": "Depth", "proxy": {"path": "layers/cover.tif"},
-                  "membership": {"type": "trapezoid", "points": [0, 0, 50, 200]}}]}]}}
-
-
 def mutations():
     """Yield (label, document) pairs: the example broken in one way each, and a few valid variants."""
-    yield "valid", example()
-    doc = example()
+    yield "valid", example_tree_doc()
+    doc = example_tree_doc()
     del doc["grid"]
     yield "valid without grid", doc
-    doc = example()
+    doc = example_tree_doc()
     doc["grid"] = {"crs": "EPSG:32750", "extent": [0, 0, 1000, 1000], "cell_size": 25}
     yield "valid with crs grid", doc
-    doc = example()
+    doc = example_tree_doc()
     doc["custom"] = {"kept": True}
     doc["root"]["children"][0]["notes"] = "free text"
     yield "valid with extra fields", doc
@@ -81,7 +57,7 @@ def mutations():
         "extent short": (("grid",), {"crs": "EPSG:4326", "extent": [0, 0, 1], "cell_size": 1}),
     }
     for label, (path, value) in paths.items():
-        doc = example()
+        doc = example_tree_doc()
         target = doc
         for key in path[:-1]:
             target = target[key]
@@ -92,7 +68,7 @@ def mutations():
                         "no membership": ("root", "children", 0, "children", 1, "membership"),
                         "no proxy path": ("root", "children", 0, "children", 1, "proxy", "path"),
                         "no operator": ("root", "children", 1, "operator")}.items():
-        doc = example()
+        doc = example_tree_doc()
         target = doc
         for key in path[:-1]:
             target = target[key]
@@ -120,65 +96,9 @@ def test_validator_refuses_keywords_it_does_not_implement():
         Validator({"oneOf": [{"type": "string"}]})
 
 
-@pytest.mark.parametrize("path, value, message", [
-    (("root", "operator", "gamma"), 1.5, r"Favourability: operator.gamma: must be at most 1, got 1.5"),
-    (("root", "children", 0, "children", 1, "membership", "lower"), 80,
-     r"Favourability > Source > Magnetic high: membership 'linear': 'lower' and 'upper' are both 80"),
-    (("root", "children", 1, "children", 3, "membership", "points"), [0, 60, 50, 200],
-     r"Favourability > Pathway > Depth: membership 'trapezoid': points must be ordered"),
-    (("root", "children", 0, "children", 0, "membership", "type"), "fuzzy",
-     r"Favourability > Source > Mafic volcanic host: membership.type: must be one of"),
-    (("root", "children", 0, "operator", "type"), "xor",
-     r"Favourability > Source: operator.type: must be one of"),
-    (("root", "children", 1, "children", 1, "membership", "spread"), "wide",
-     r"Favourability > Pathway > Gravity ridge: membership.spread: must be of type number"),
-])
-def test_messages_name_the_node_path_and_the_problem(path, value, message):
-    """A bad value is reported with the node's path from the root and the field."""
-    doc = example()
-    target = doc
-    for key in path[:-1]:
-        target = target[key]
-    target[path[-1]] = value
-    with pytest.raises(TreeFileError, match=message):
-        Tree.from_dict(doc)
-
-
-def test_duplicate_sibling_names_are_refused():
-    """Two children with one name would make node paths ambiguous."""
-    doc = example()
-    doc["root"]["children"][1]["name"] = "Source"
-    with pytest.raises(TreeFileError, match="two children are named 'Source'"):
-        Tree.from_dict(doc)
-
-
-def test_future_version_names_both_versions():
-    """A version newer than this program reads is refused with both numbers."""
-    doc = example()
-    doc["version"] = 2
-    with pytest.raises(TreeFileError, match="version 2 is newer than this Favour reads \\(version 1\\)"):
-        Tree.from_dict(doc)
-
-
-def test_invalid_json_names_line_and_column(tmp_path):
-    """Broken JSON is reported with its line and column."""
-    path = tmp_path / "broken.json"
-    path.write_text('{\n  "format": "favour-tree",\n  "version": 1\n  "root": {}\n}\n')
-    with pytest.raises(TreeFileError, match="not valid JSON: Expecting ',' delimiter at line 4, column 3"):
-        Tree.load(path)
-
-
-def test_not_a_tree_file(tmp_path):
-    """A JSON file of another kind is refused as not a Favour tree."""
-    with pytest.raises(TreeFileError, match="not a Favour tree file"):
-        Tree.from_dict({"type": "FeatureCollection"})
-    with pytest.raises(TreeFileError, match="does not exist"):
-        Tree.load(tmp_path / "missing.json")
-
-
 def test_round_trip_keeps_everything_including_unknown_fields():
     """from_dict(to_dict()) reproduces the document, extra fields and all."""
-    doc = example()
+    doc = example_tree_doc()
     doc["custom"] = {"kept": [1, 2]}
     doc["root"]["children"][0]["children"][0]["proxy"]["note"] = "aeromagnetic survey 3"
     doc["root"]["children"][1]["extra_field"] = 5
@@ -194,7 +114,7 @@ def test_save_keeps_a_backup_and_rebases_relative_paths(tmp_path):
     """save() writes atomically, keeps one .bak, and relative paths still point at the same files."""
     first = tmp_path / "models" / "model.json"
     first.parent.mkdir()
-    tree = Tree.from_dict(example(), base_dir=first.parent)
+    tree = Tree.from_dict(example_tree_doc(), base_dir=first.parent)
     tree.save(first)
     before = {p: n.proxy.resolve(tree.base_dir) for p, n in tree.walk() if n.proxy}
     tree.name = "Second version"
@@ -213,7 +133,7 @@ def test_save_keeps_a_backup_and_rebases_relative_paths(tmp_path):
 
 def test_plan_evaluates_children_before_parents_and_drops_unkept_nodes():
     """evaluate_block returns the root and kept nodes only, computed bottom-up."""
-    plan = Tree.from_dict(example()).compile()
+    plan = Tree.from_dict(example_tree_doc()).compile()
     values = {leaf.path: np.array([3.0, 1.0, np.nan]) for leaf in plan.leaves}
     out = plan.evaluate_block(values, keep=["Favourability > Source"])
     assert set(out) == {"Favourability", "Favourability > Source"}

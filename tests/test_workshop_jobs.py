@@ -2,7 +2,8 @@
 
 The numbers are checked against the core functions (tested elsewhere against
 numpy, scipy.stats and numpy.linalg.eig): each path must give the same
-numbers, cell for cell where rasters are written.
+numbers, cell for cell where rasters are written. A second export over filled
+sheets is refused: that row is in the table of tests/test_refusals.py.
 """
 
 from __future__ import annotations
@@ -13,7 +14,6 @@ import json
 import numpy as np
 import pytest
 
-from favour_plugin.core.errors import OutputError
 from favour_plugin.core.pairwise import pairwise_weights
 from favour_plugin.core.sheet_import import read_sheets
 from favour_plugin.core.tree import Tree
@@ -28,17 +28,6 @@ Mag,1,2,6
 Grav,1/2,1,3
 Host,1/6,1/3,1
 """
-
-
-def test_sheets_are_never_written_over(tmp_path):
-    """A second export into the same folder is refused naming the sheet; the filled sheet is kept."""
-    tree, _, _ = small_workshop(tmp_path)
-    first = write_score_sheets(tree, str(tmp_path / "sheets"), 2)
-    filled = open(first[0], encoding="utf-8").read() + "\n# an expert's notes\n"
-    open(first[0], "w", encoding="utf-8").write(filled)
-    with pytest.raises(OutputError, match=r"E1\.csv already exists and may hold an expert's scores"):
-        write_score_sheets(tree, str(tmp_path / "sheets"), 2)
-    assert open(first[0], encoding="utf-8").read() == filled
 
 
 def test_second_round_sheets_carry_the_group_spread(tmp_path):

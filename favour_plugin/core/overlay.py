@@ -73,12 +73,21 @@ def _fold(children, nodata, combine, neutral, transform=None):
         for child in children[1:]:
             combine(acc, value(child), out=acc)
         return acc
+    if combine in _SKIPPING:
+        # fmin and fmax skip NaN by themselves and give NaN only where every child is NaN.
+        acc = np.array(value(children[0]), dtype=np.float64, copy=True)
+        for child in children[1:]:
+            _SKIPPING[combine](acc, value(child), out=acc)
+        return acc
     acc = np.full(np.shape(children[0]), neutral, dtype=np.float64)
+    replace = np.fmin if neutral == 1.0 else np.fmax  # values lie in [0, 1]: NaN → the neutral value
     for child in children:
-        v = value(child)
-        combine(acc, np.where(np.isnan(v), neutral, v), out=acc)
+        combine(acc, replace(value(child), neutral), out=acc)
     acc[_missing_mask(children, "ignore")] = np.nan
     return acc
+
+
+_SKIPPING = {np.minimum: np.fmin, np.maximum: np.fmax}
 
 
 def _complement(array: np.ndarray) -> np.ndarray:
@@ -165,7 +174,15 @@ def fuzzy_gamma(children: Sequence[np.ndarray], gamma: float, nodata: str = "pro
         return fuzzy_sum(children, nodata)
     product = fuzzy_product(children, nodata)
     total = fuzzy_sum(children, nodata)
-    return np.power(total, gamma) * np.power(product, 1.0 - gamma)
+    # sum^γ · product^(1−γ) = exp(γ ln sum + (1−γ) ln product): three transcendental
+    # functions per cell instead of the four of two powers; ln 0 = −inf gives exp(−inf) = 0.
+    with np.errstate(divide="ignore"):
+        np.log(total, out=total)
+        np.log(product, out=product)
+    total *= gamma
+    product *= 1.0 - gamma
+    total += product
+    return np.exp(total, out=total)
 
 
 def weighted_mean(children: Sequence[np.ndarray], weights: Sequence[float],
@@ -205,14 +222,18 @@ def weighted_mean(children: Sequence[np.ndarray], weights: Sequence[float],
         return numerator
     numerator = np.zeros(np.shape(children[0]), dtype=np.float64)
     denominator = np.zeros_like(numerator)
+    term = np.empty_like(numerator)
     for child, w in zip(children, weights):
+        if not w:
+            continue  # a child of weight 0 changes neither sum, present or not
         value = np.asarray(child, dtype=np.float64)
-        present = ~np.isnan(value)
-        numerator += np.where(present, value, 0.0) * w
-        denominator += present * float(w)
+        np.fmax(value, 0.0, out=term)  # μ ≥ 0, so fmax only turns NaN into 0
+        term *= float(w)
+        numerator += term
+        denominator += ~np.isnan(value) * float(w)
     with np.errstate(invalid="ignore", divide="ignore"):
-        result = numerator / denominator
-    result[denominator == 0] = np.nan
+        result = np.divide(numerator, denominator, out=numerator)
+    result[denominator <= 0] = np.nan
     return result
 
 

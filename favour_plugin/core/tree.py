@@ -1055,7 +1055,7 @@ class EvaluationPlan:
             the same shape.
         keep : sequence of str
             Node paths whose μ to return besides the root's.
-        cache : dict, optional
+        cache : BlockCache, optional
             Results by node signature, shared by several plans evaluated on
             the same ``values`` (the realisations of a Monte Carlo): a leaf or
             subtree that another plan already computed with the same
@@ -1077,27 +1077,67 @@ class EvaluationPlan:
         wanted = set(keep) | {self.root_path}
         results: dict[str, np.ndarray] = {}
         for leaf in self.leaves:
-            if cache is not None and leaf.signature in cache:
-                results[leaf.path] = cache[leaf.signature]
+            found = cache.get(leaf.signature) if cache is not None else None
+            if found is not None:
+                results[leaf.path] = found
                 continue
             try:
                 results[leaf.path] = leaf.membership(values[leaf.path])
             except FavourError as exc:
                 raise type(exc)(f"{leaf.path}: {exc}") from None
             if cache is not None:
-                cache[leaf.signature] = results[leaf.path]
+                cache.put(leaf.signature, results[leaf.path])
         for step in self.steps:
-            if cache is not None and step.signature in cache:
-                results[step.path] = cache[step.signature]
+            found = cache.get(step.signature) if cache is not None else None
+            if found is not None:
+                results[step.path] = found
             else:
                 results[step.path] = step.operator.combine(
                     [results[c] for c in step.children], step.weights)
                 if cache is not None:
-                    cache[step.signature] = results[step.path]
+                    cache.put(step.signature, results[step.path])
             for child in step.children:
                 if child not in wanted:
                     del results[child]
         return {path: results[path] for path in results if path in wanted}
+
+
+class BlockCache:
+    """Results of one block by node signature, kept only for nodes more than one plan computes.
+
+    Build it once for a set of plans (:meth:`for_plans`), then :meth:`fresh`
+    for each block: a node that only one plan has is never stored, so the
+    cache holds the shared leaves and subtrees, not every plan's every node.
+    """
+
+    def __init__(self, keep: frozenset[str]) -> None:
+        self.keep = keep
+        self._results: dict[str, np.ndarray] = {}
+
+    @classmethod
+    def for_plans(cls, plans) -> BlockCache:
+        """Return an empty cache that keeps the signatures at least two of ``plans`` share."""
+        counts: dict[str, int] = {}
+        for plan in plans:
+            for signature in {leaf.signature for leaf in plan.leaves} | {s.signature for s in plan.steps}:
+                counts[signature] = counts.get(signature, 0) + 1
+        return cls(frozenset(sig for sig, count in counts.items() if count > 1))
+
+    def fresh(self) -> BlockCache:
+        """Return an empty cache keeping the same signatures (for the next block)."""
+        return BlockCache(self.keep)
+
+    def get(self, signature: str) -> np.ndarray | None:
+        """Return a stored result, or None."""
+        return self._results.get(signature)
+
+    def put(self, signature: str, result: np.ndarray) -> None:
+        """Store a result if another plan will want it."""
+        if signature in self.keep:
+            self._results[signature] = result
+
+    def __len__(self) -> int:
+        return len(self._results)
 
 
 def _signature(parts) -> str:

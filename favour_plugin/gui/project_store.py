@@ -91,11 +91,11 @@ class ProjectStore(QObject):
                 tree = Tree.from_draft_json(text, base_dir=self.folder() or None,
                                             source="the tree stored in this project")
             except FavourError as exc:
-                notify(self.iface, tr("The criteria tree stored in this project cannot be read: "
-                                      "{error}").format(error=exc), Qgis.Critical)
+                notify(self.iface, tr("The Favour dock stays empty: {error}").format(error=exc),
+                       Qgis.Critical)
             except Exception as exc:  # a slot must not raise: PyQt would abort QGIS
-                notify(self.iface, tr("The criteria tree stored in this project cannot be read: "
-                                      "{error}").format(error=f"{type(exc).__name__}: {exc}"),
+                notify(self.iface, tr("The Favour dock stays empty: the tree stored in this project "
+                                      "cannot be read: {error}").format(error=f"{type(exc).__name__}: {exc}"),
                        Qgis.Critical)
         self._loading = True
         try:

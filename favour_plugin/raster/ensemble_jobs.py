@@ -11,9 +11,9 @@ time (``STACK_BYTES``), so memory grows with N times a strip of a block,
 never with the grid.
 
 The top x % of each map's area needs the map's quantile, known only once
-every cell has been seen. A pilot evaluates every tree on a regular sample
-of rows (every row when the grid has at most ``PILOT_CELLS`` cells, so small
-grids are exact) and takes each threshold from a fine histogram
+every cell has been seen. A pilot evaluates every tree on strips of rows
+spread evenly over the grid (every cell when the grid has at most
+``PILOT_CELLS`` cells, so small grids are exact) and takes each threshold from a fine histogram
 (:class:`~favour_plugin.core.ensemble.UnitHistograms`); the full pass then
 counts the share of the area each threshold actually cut off, and the
 lineage records both.
@@ -35,16 +35,15 @@ from ..core.errors import InputError, ParameterError
 from ..core.feedback import Feedback
 from ..core.scoring import apply_values
 from ..core.sheet_import import read_sheets
-from ..core.tree import EvaluationPlan, Tree
+from ..core.tree import BlockCache, EvaluationPlan, Tree
 from ..core.uncertainty import MODES, sample_values, sensitivity_variants
 from ..core.workshop import STATISTICS, check_expert_weights
-from .blocks import Window
+from .blocks import Window, iter_windows
 from .engine import PreparedInputs, base_record, job_inputs, prepare_inputs, read_leaves
 from .evidence import DepositCells, deposit_cells
 from .gdalenv import gdal_job
 from .grid import Grid
 from .outputs import OutputJob, check_apart, stage_lineage
-from .sources import BlockReader
 from .streaming import DEFAULT_THREADS, map_windows
 from .style import membership_style, style_path
 from .writer import RasterWriter, check_raster_name
@@ -60,6 +59,8 @@ MC_OUTPUTS = {
 }
 #: Bytes of one strip of the stack of N maps evaluated together.
 STACK_BYTES = 32 * 2**20
+#: Cells of one strip: each intermediate map (and each cached one) is at most this many float64.
+STRIP_CELLS = 65536
 #: The pilot samples rows until it holds about this many cells; grids this small are read whole.
 PILOT_CELLS = 1_000_000
 
@@ -83,58 +84,73 @@ def _check_top(top_percent) -> float:
 
 
 def _strip_rows(n: int, width: int) -> int:
-    """Rows of a block evaluated together so N maps of them fit in ``STACK_BYTES`` (float32)."""
-    return max(1, STACK_BYTES // (4 * max(1, n) * max(1, width)))
+    """Return how many rows of a block are evaluated together.
+
+    N maps of them fit in ``STACK_BYTES`` (float32), and one intermediate
+    map (float64) holds at most ``STRIP_CELLS`` cells.
+    """
+    width = max(1, width)
+    return max(1, min(STACK_BYTES // (4 * max(1, n) * width), STRIP_CELLS // width))
 
 
-def _stack(plans: Sequence[EvaluationPlan], values: Mapping[str, np.ndarray]) -> np.ndarray:
+def _stack(plans: Sequence[EvaluationPlan], values: Mapping[str, np.ndarray],
+           cache: BlockCache) -> np.ndarray:
     """Evaluate every plan on one strip of proxy values; return their root maps stacked (float32).
 
     Plans that share a leaf or a subtree with the same parameters compute it
-    once for the strip (the plans' shared cache).
+    once for the strip (``cache``, made by :meth:`BlockCache.for_plans`).
     """
     shape = next(iter(values.values())).shape
     stack = np.empty((len(plans), *shape), dtype=np.float32)
-    cache: dict = {}
+    cache = cache.fresh()
     for i, plan in enumerate(plans):
         stack[i] = plan.evaluate_block(values, cache=cache)[plan.root_path]
     return stack
 
 
-def _pilot_rows(grid: Grid, pilot_cells: int) -> list[list[int]]:
-    """Return the sampled rows in groups of about 65 536 cells (every row for a small grid)."""
-    count = min(grid.height, max(1, pilot_cells // max(1, grid.width)))
-    rows = np.unique(np.linspace(0, grid.height - 1, count).round().astype(int)).tolist()
-    per_group = max(1, 65536 // max(1, grid.width))
-    return [rows[i:i + per_group] for i in range(0, len(rows), per_group)]
+#: Rows of one pilot strip, and the widest piece of a strip read at once.
+PILOT_ROWS, PILOT_COLS = 8, 4096
 
 
-def _read_rows(plan: EvaluationPlan, sources, reader: BlockReader, grid: Grid, rows: list[int]):
-    """Read the leaves on the given rows (full width), stacked into one block per leaf."""
-    parts = [read_leaves(plan, sources, reader, Window(0, row, grid.width, 1)) for row in rows]
-    return {path: np.vstack([part[path] for part in parts]) for path in parts[0]}
+def pilot_windows(grid: Grid, pilot_cells: int) -> list[Window]:
+    """Return the windows the pilot reads: every window when the grid is small, else strips.
+
+    Strips of ``PILOT_ROWS`` rows across the whole width, spaced evenly from
+    the top row to the bottom one, until they hold about ``pilot_cells``
+    cells; every column is sampled, so a side of the grid that differs (a
+    basin under cover, say) is not missed. Strips wider than
+    ``PILOT_COLS`` are read in pieces.
+    """
+    if grid.cells <= pilot_cells:
+        return list(iter_windows(grid.width, grid.height))
+    rows = min(PILOT_ROWS, grid.height)
+    count = max(2, min(grid.height // rows, -(-pilot_cells // (rows * grid.width))))
+    offsets = np.unique(np.linspace(0, grid.height - rows, count).round().astype(int))
+    return [Window(col, int(row), min(PILOT_COLS, grid.width - col), rows)
+            for row in offsets for col in range(0, grid.width, PILOT_COLS)]
 
 
 def _pilot(base: EvaluationPlan, plans, prepared: PreparedInputs, feedback: Feedback, threads: int,
            pilot_cells: int, span: tuple[float, float]) -> tuple[UnitHistograms, int]:
-    """Histograms of every plan's μ on the sampled rows; and how many rows were sampled."""
-    groups = _pilot_rows(prepared.grid, pilot_cells)
+    """Histograms of every plan's μ on the pilot windows; and how many cells they hold."""
+    windows = pilot_windows(prepared.grid, pilot_cells)
     histograms = UnitHistograms(len(plans))
+    shared = BlockCache.for_plans(plans)
     lock = threading.Lock()
 
-    def work(rows, reader):
-        values = _read_rows(base, prepared.sources, reader, prepared.grid, rows)
-        strip = _strip_rows(len(plans), prepared.grid.width)
+    def work(window, reader):
+        leaves = read_leaves(base, prepared.sources, reader, window)
+        strip = _strip_rows(len(plans), window.width)
         local = UnitHistograms(len(plans))
-        for start in range(0, len(rows), strip):
+        for start in range(0, window.height, strip):
             feedback.check_cancelled()
-            local.add(_stack(plans, {k: v[start:start + strip] for k, v in values.items()}))
+            local.add(_stack(plans, {k: v[start:start + strip] for k, v in leaves.items()}, shared))
         with lock:
             histograms.merge(local)
 
-    for _ in map_windows(work, prepared.grid, feedback, threads, span, items=groups):
+    for _ in map_windows(work, prepared.grid, feedback, threads, span, items=windows):
         pass
-    return histograms, sum(len(g) for g in groups)
+    return histograms, sum(w.width * w.height for w in windows)
 
 
 def _prepare(tree: Tree, tree_file: str | None, workdir: str, feedback: Feedback,
@@ -143,12 +159,13 @@ def _prepare(tree: Tree, tree_file: str | None, workdir: str, feedback: Feedback
     return plan, prepare_inputs(tree, plan, None, workdir, feedback, tree_file, span=span)
 
 
-def _pilot_note(grid: Grid, sampled_rows: int, thresholds: np.ndarray, realised: np.ndarray,
+def _pilot_note(grid: Grid, sampled: int, thresholds: np.ndarray, realised: np.ndarray,
                 top_percent: float) -> dict:
-    exact = sampled_rows >= grid.height
+    """Say where the top-area thresholds came from and what share of each map they cut off."""
+    exact = sampled >= grid.cells
     return {"top_percent": top_percent,
-            "threshold_source": "every row of the grid" if exact else
-            f"a pilot of {sampled_rows} evenly spaced rows of {grid.height}",
+            "threshold_source": "every cell of the grid" if exact else
+            f"a pilot of {sampled} cells in strips spread evenly over the grid's {grid.cells}",
             "thresholds": {"min": float(np.nanmin(thresholds)), "max": float(np.nanmax(thresholds))},
             "realised_top_percent": {"min": float(np.nanmin(realised) * 100),
                                      "max": float(np.nanmax(realised) * 100)}}
@@ -231,6 +248,7 @@ def monte_carlo(tree: Tree, sheets: Sequence[str], outputs: Mapping[str, str], n
         above = np.zeros(n, dtype=np.int64)
         valid = np.zeros(n, dtype=np.int64)
         lock = threading.Lock()
+        shared = BlockCache.for_plans(plans)
 
         def work(window, reader):
             leaves = read_leaves(base, prepared.sources, reader, window)
@@ -240,7 +258,7 @@ def monte_carlo(tree: Tree, sheets: Sequence[str], outputs: Mapping[str, str], n
             local_valid = np.zeros(n, dtype=np.int64)
             for start in range(0, window.height, strip):
                 feedback.check_cancelled()
-                stack = _stack(plans, {k: v[start:start + strip] for k, v in leaves.items()})
+                stack = _stack(plans, {k: v[start:start + strip] for k, v in leaves.items()}, shared)
                 summary = summarise_stack(stack, thresholds)
                 for name in outputs:
                     blocks[name][start:start + strip] = summary[name]
@@ -400,6 +418,7 @@ def _sensitivity_pass(base, plans, prepared: PreparedInputs, thresholds, points:
     histograms = UnitHistograms(v) if points is not None else None
     deposit_values: list[list[np.ndarray]] = [[] for _ in range(v)]
     lock = threading.Lock()
+    shared = BlockCache.for_plans(plans)
 
     def work(window, reader):
         leaves = read_leaves(base, prepared.sources, reader, window)
@@ -409,7 +428,7 @@ def _sensitivity_pass(base, plans, prepared: PreparedInputs, thresholds, points:
         found = [[] for _ in range(v)]
         for start in range(0, window.height, strip):
             feedback.check_cancelled()
-            stack = _stack(plans, {k: a[start:start + strip] for k, a in leaves.items()})
+            stack = _stack(plans, {k: a[start:start + strip] for k, a in leaves.items()}, shared)
             flat = stack.reshape(v, -1)
             top = flat >= thresholds[:, None]
             both = ~np.isnan(flat) & ~np.isnan(flat[0])

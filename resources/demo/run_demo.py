@@ -29,6 +29,7 @@ import generate  # noqa: E402
 import matplotlib.patheffects as path_effects  # noqa: E402
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
+import workshop  # noqa: E402
 from matplotlib.colors import LinearSegmentedColormap  # noqa: E402
 from matplotlib.ticker import FuncFormatter  # noqa: E402
 from osgeo import gdal, ogr  # noqa: E402
@@ -37,10 +38,14 @@ from favour_plugin.cli import ConsoleFeedback  # noqa: E402
 from favour_plugin.core.lineage import CAUTION  # noqa: E402
 from favour_plugin.core.tree import Tree  # noqa: E402
 from favour_plugin.raster.engine import evaluate_tree_file  # noqa: E402
+from favour_plugin.raster.ensemble_jobs import MC_OUTPUTS, monte_carlo, sensitivity  # noqa: E402
 from favour_plugin.raster.style import RAMP  # noqa: E402
+from favour_plugin.raster.workshop_jobs import aggregate_scores  # noqa: E402
 
 TREE_FILE = HERE / "district.favour.json"
 OUT_FOLDER = ROOT / "build" / "demo"
+#: Realisations of the demo's Monte Carlo (the seed is fixed, so the maps are the same each time).
+DEMO_REALISATIONS, DEMO_SEED = 100, 20261202
 # Longest side of the decimated read for the main map and for the component panels.
 MAIN_CELLS, PANEL_CELLS = 800, 300
 
@@ -229,10 +234,12 @@ def values_at_points(raster: str | Path, xy: np.ndarray) -> np.ndarray:
 
 
 def run(tree_file: Path = TREE_FILE, out_folder: Path = OUT_FOLDER, feedback=None,
-        seed: int = generate.DEFAULT_SEED) -> dict:
+        seed: int = generate.DEFAULT_SEED, with_workshop: bool = True,
+        realisations: int = DEMO_REALISATIONS) -> dict:
     """Generate missing layers, evaluate the tree, draw the quicklook; return the output paths.
 
-    The layers are the ``layers/`` folder beside ``tree_file``.
+    The layers are the ``layers/`` folder beside ``tree_file``. With
+    ``with_workshop`` the demo workshop runs too (:func:`run_workshop`).
     """
     tree_file, out_folder = Path(tree_file), Path(out_folder)
     layers = tree_file.parent / "layers"
@@ -249,10 +256,43 @@ def run(tree_file: Path = TREE_FILE, out_folder: Path = OUT_FOLDER, feedback=Non
                     generate.DISTRICT)
     occurrences = read_features(layers / "occurrences.gpkg", "occurrences")
     at = values_at_points(result.output, np.array([points[0] for points, _ in occurrences]))
-    return {"favourability": result.output, "nodes": result.node_outputs,
-            "lineage": result.lineage_file, "png": str(png), "result": result,
-            "occurrences": {attributes["name"]: float(v) for (_, attributes), v in zip(occurrences, at)},
-            "map_mean": result.lineage["statistics"][result.lineage["root"]]["mean"]}
+    outputs = {"favourability": result.output, "nodes": result.node_outputs,
+               "lineage": result.lineage_file, "png": str(png), "result": result,
+               "occurrences": {attributes["name"]: float(v) for (_, attributes), v in zip(occurrences, at)},
+               "map_mean": result.lineage["statistics"][result.lineage["root"]]["mean"]}
+    if with_workshop:
+        outputs["workshop"] = run_workshop(tree_file, out_folder, layers, feedback, realisations)
+    return outputs
+
+
+def run_workshop(tree_file: Path, out_folder: Path, layers: Path, feedback,
+                 realisations: int = DEMO_REALISATIONS) -> dict:
+    """Run the demo workshop: five invented experts' sheets, two rounds aggregated, uncertainty.
+
+    Writes the sheets (``workshop/``), the aggregate table and tree, the Monte
+    Carlo rasters from the second round (``uncertainty/``) and the
+    sensitivity table and tornado chart against the known occurrences.
+    """
+    tree = Tree.load(tree_file)
+    folder = out_folder / "workshop"
+    manifest = workshop.generate_workshop(folder, tree_file=tree_file)
+    round1 = [str(folder / p) for p in manifest["round1"]]
+    round2 = [str(folder / p) for p in manifest["round2"]]
+    aggregated = aggregate_scores(tree, round1, str(out_folder / "workshop-aggregate.csv"), [round2],
+                                  output_tree=str(out_folder / "aggregate.favour.json"),
+                                  tree_file=str(tree_file))
+    uncertainty = out_folder / "uncertainty"
+    mc = monte_carlo(tree, round2, {name: str(uncertainty / f"favourability-{name}.tif")
+                                    for name in MC_OUTPUTS}, n=realisations, seed=DEMO_SEED,
+                     feedback=feedback, tree_file=str(tree_file))
+    sens = sensitivity(tree, str(uncertainty / "sensitivity.csv"), str(uncertainty / "tornado.png"),
+                       deposits=str(layers / "occurrences.gpkg"), feedback=feedback,
+                       tree_file=str(tree_file))
+    return {"sheets": round1 + round2, "aggregate": aggregated.table_file,
+            "aggregate_tree": aggregated.tree_file,
+            "flagged": [f"{s.node} ({s.item})" for s in aggregated.rounds[0].flagged],
+            "flagged_round2": [f"{s.node} ({s.item})" for s in aggregated.latest.flagged],
+            "uncertainty": mc.files, "sensitivity": sens.files, "rows": sens.rows}
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -273,6 +313,15 @@ def main(argv: list[str] | None = None) -> int:
     at = np.array(list(outputs["occurrences"].values()))
     print(f"  known occurrences: median favourability {np.median(at):.2f}, lowest {at.min():.2f}; "
           f"map mean {outputs['map_mean']:.2f}")
+    shop = outputs["workshop"]
+    print(f"  workshop sheets: {Path(shop['sheets'][0]).parent} (5 invented experts, two rounds)")
+    first, second = ("; ".join(shop[key]) or "nothing" for key in ("flagged", "flagged_round2"))
+    print(f"  aggregate:       {shop['aggregate']}  (flagged in round 1: {first}; in round 2: {second})")
+    print(f"  aggregate tree:  {shop['aggregate_tree']}")
+    for name, path in shop["uncertainty"].items():
+        print(f"  Monte Carlo {name + ':':11s} {path}")
+    print(f"  sensitivity:     {shop['sensitivity']['table']}")
+    print(f"  tornado chart:   {shop['sensitivity']['chart']}")
     print()
     print(CAUTION)
     return 0
