@@ -576,3 +576,97 @@ def test_a_byte_order_mark_is_read(tmp_path):
     path = tmp_path / "bom.favour.json"
     path.write_bytes(b"\xef\xbb\xbf" + json.dumps(BASES[1], indent=2).encode("utf-8"))
     assert Tree.load(path).name == "Test tree"
+
+
+# -- score sheets and pairwise matrices ---------------------------------------------------------
+
+
+@pytest.fixture(scope="module")
+def sheet(tmp_path_factory) -> dict:
+    """A sound score sheet of the scored test tree, its text, and the tree."""
+    from favour_plugin.core.sheets import export_sheets
+    from tests.helpers import scored_tree
+
+    folder = tmp_path_factory.mktemp("sheets")
+    tree = scored_tree()
+    (path,) = export_sheets(tree, folder, ["E1"])
+    return {"folder": folder, "tree": tree, "text": path.read_text(encoding="utf-8")}
+
+
+CELL_VALUES = st.one_of(st.text(max_size=12), st.floats(allow_nan=True, allow_infinity=True).map(repr),
+                        st.integers(-10**30, 10**30).map(str), st.sampled_from(["", "#", "nan", "1e999",
+                                                                               "low", "E1", "9", "0"]))
+
+
+@st.composite
+def damaged_sheet(draw, text: str) -> bytes:
+    """A sheet's text with cells replaced, lines cut or repeated, bytes inserted, or truncated."""
+    lines = text.split("\n")
+    for _ in range(draw(st.integers(1, 4))):
+        if not lines:
+            break
+        kind = draw(st.sampled_from(["cell", "drop", "repeat", "truncate", "separator"]))
+        k = draw(st.integers(0, len(lines) - 1))
+        if kind == "cell":
+            cells = lines[k].split(",")
+            cells[draw(st.integers(0, max(0, len(cells) - 1)))] = draw(CELL_VALUES).replace("\n", " ")
+            lines[k] = ",".join(cells)
+        elif kind == "drop":
+            del lines[k]
+        elif kind == "repeat":
+            lines.insert(k, lines[k])
+        elif kind == "separator":
+            lines[k] = lines[k].replace(",", draw(st.sampled_from([";", "\t", '"', ""])))
+        elif kind == "truncate":
+            lines = lines[:k]
+    data = "\n".join(lines).encode("utf-8")
+    if draw(st.booleans()):
+        at = draw(st.integers(0, len(data)))
+        data = data[:at] + draw(st.binary(min_size=1, max_size=8)) + data[at:]
+    return data
+
+
+@fuzz(200, seconds=3)
+@given(data=st.data())
+def test_damaged_score_sheets_give_scores_or_a_sheet_error(sheet, data):
+    """A damaged sheet: our SheetError naming the file, or scores, and the tree unchanged (property)."""
+    from favour_plugin.core.errors import SheetError
+    from favour_plugin.core.sheet_import import read_sheets
+
+    path = sheet["folder"] / "damaged.csv"
+    path.write_bytes(data.draw(damaged_sheet(sheet["text"])))
+    before = sheet["tree"].to_dict()
+    try:
+        read_sheets([path], sheet["tree"])
+    except SheetError as exc:
+        assert "damaged.csv" in str(exc)
+    assert sheet["tree"].to_dict() == before
+
+
+@fuzz(60, seconds=5)
+@given(payload=st.binary(max_size=4000))
+def test_random_bytes_as_a_workbook_give_a_sheet_error(sheet, payload):
+    """Any bytes named .xlsx: our SheetError or scores, never another exception (property)."""
+    from favour_plugin.core.errors import SheetError
+    from favour_plugin.core.sheet_import import read_sheets
+
+    path = sheet["folder"] / "random.xlsx"
+    path.write_bytes(payload)
+    with pytest.raises(SheetError):
+        read_sheets([path], sheet["tree"])
+
+
+@fuzz(150)
+@given(text=st.text(alphabet=st.sampled_from(list("0123456789/,.-eE \nABC")), max_size=300))
+def test_pairwise_matrix_files_give_weights_or_our_error(sheet, text):
+    """Any text as a pairwise matrix: weights or our ParameterError, never another exception (property)."""
+    from favour_plugin.core.errors import ParameterError
+    from favour_plugin.raster.workshop_jobs import pairwise_job
+
+    path = sheet["folder"] / "matrix.csv"
+    path.write_text(text, encoding="utf-8")
+    try:
+        job = pairwise_job(str(path))
+    except ParameterError:
+        return
+    assert abs(sum(job.result.weights) - 1.0) < 1e-9

@@ -58,6 +58,7 @@ from favour_plugin.core.feedback import Feedback
 from favour_plugin.core.lineage import read_lineage
 from favour_plugin.core.pairwise import matrix_from_judgements, pairwise_weights
 from favour_plugin.core.scoring import Scores, Workshop
+from favour_plugin.core.sheet_import import read_sheets
 from favour_plugin.core.sheets import export_sheets, write_sheet
 from favour_plugin.core.tree import MAX_NODES, Tree
 from favour_plugin.core.uncertainty import MAX_DRAWS, sample_trees, sensitivity_variants
@@ -66,6 +67,7 @@ from favour_plugin.core.workshop import check_expert_weights
 from favour_plugin.raster.engine import evaluate_tree, evaluate_tree_file, reproduce
 from favour_plugin.raster.ensemble_jobs import MC_OUTPUTS, monte_carlo, sensitivity
 from favour_plugin.raster.wofe_jobs import evidence_weights, posterior
+from favour_plugin.raster.workshop_jobs import pairwise_job
 from tests.helpers import (
     ORIGIN,
     deep_tree_text,
@@ -683,6 +685,14 @@ CASES += [
     Case("FIFO as lineage, refused without blocking", RULE_NOT_A_FILE, "core",
          lambda s: read_fifo(s, "out.tif.lineage.json", read_lineage, s.root / "out.tif"), LineageError,
          "is not a regular file"),
+    Case("FIFO as score sheet, refused without blocking", RULE_NOT_A_FILE, "core",
+         lambda s: read_fifo(s, "pipe.csv", lambda f: read_sheets([f], scored_tree())), SheetError,
+         "is not a regular file"),
+    Case("FIFO as workbook, refused without blocking", RULE_NOT_A_FILE, "core",
+         lambda s: read_fifo(s, "pipe.xlsx", lambda f: read_sheets([f], scored_tree())), SheetError,
+         "is not a regular file"),
+    Case("FIFO as pairwise matrix, refused without blocking", RULE_NOT_A_FILE, "core",
+         lambda s: read_fifo(s, "pipe-matrix.csv", pairwise_job), ParameterError, "is not a regular file"),
     Case("FIFO as tree file (cli)", RULE_NOT_A_FILE, "cli",
          lambda s: ["evaluate", s.fifo("pipe.favour.json"), "-o", s.earlier("fav.tif")], TreeFileError,
          r"(?m)^error: tree file .*is not a regular file"),
@@ -834,7 +844,7 @@ CASES += [
     Case("sheet: a .txt file", RULE_SHEET_FILE, "core", lambda s: sheet_file(s, "E1.txt", "x"), SheetError,
          r"E1\.txt: a score sheet is a \.csv or \.xlsx file"),
     Case("sheet: missing", RULE_SHEET_FILE, "core", lambda s: sheet_file(s, "missing.csv", None), SheetError,
-         r"missing\.csv: no such file"),
+         r"missing\.csv does not exist"),
     Case("write a sheet as .ods", RULE_SHEET_WRITE, "core",
          lambda s: partial(write_sheet, s.root / "E1.ods", scored_tree(), "E1"), ParameterError,
          r"\.csv or \.xlsx, got 'E1\.ods'"),

@@ -17,6 +17,7 @@ from collections.abc import Iterable, Mapping
 from pathlib import Path
 
 from .errors import SheetError
+from .jsonio import read_user_bytes
 from .scoring import (
     CONFIDENCE_LEVELS,
     IMPORTANCE,
@@ -36,9 +37,20 @@ from .tree import PATH_SEPARATOR, Tree
 
 MAX_ERRORS = 20
 
+#: Largest score sheet read: a tree of 1000 nodes scored item by item fills well under a megabyte
+#: (common practice, no source).
+SHEET_MAX_BYTES = 16 * 2**20
+#: Rows of a workbook read before it is refused (a sheet has one row per node and item).
+MAX_SHEET_ROWS = 100_000
+
+
+def _sheet_bytes(path: Path) -> bytes:
+    """Read a sheet's bytes as every user file is read: a regular file of bounded size, or SheetError."""
+    return read_user_bytes(path, max_bytes=SHEET_MAX_BYTES, error=SheetError, what="score sheet")
+
 
 def _csv_records(path: Path) -> list[tuple[int, list[str]]]:
-    data = path.read_bytes()
+    data = _sheet_bytes(path)
     if not data.strip():
         raise SheetError(f"{path}: the file is empty; a score sheet has a header row "
                          f"({', '.join(COLUMNS)}) and one row per node and item")
@@ -89,7 +101,8 @@ def _cell_text(value) -> str:
 
 
 def _xlsx_records(path: Path) -> list[tuple[int, list[str]]]:
-    if path.stat().st_size == 0:
+    data = _sheet_bytes(path)
+    if not data:
         raise SheetError(f"{path}: the file is empty; a score sheet has a header row "
                          f"({', '.join(COLUMNS)}) and one row per node and item")
     if not xlsx_available():
@@ -98,13 +111,21 @@ def _xlsx_records(path: Path) -> list[tuple[int, list[str]]]:
     import openpyxl
 
     try:
-        book = openpyxl.load_workbook(path, read_only=True, data_only=True)
+        book = openpyxl.load_workbook(io.BytesIO(data), read_only=True, data_only=True)
     except Exception as exc:  # openpyxl raises zipfile, KeyError and its own errors for non-workbooks
         raise SheetError(f"{path}: not an XLSX workbook ({type(exc).__name__}: {exc})") from None
     try:
         sheet = book["scores"] if "scores" in book.sheetnames else book.worksheets[0]
-        records = [(number, [_cell_text(v) for v in row])
-                   for number, row in enumerate(sheet.iter_rows(values_only=True), start=1)]
+        records = []
+        for number, row in enumerate(sheet.iter_rows(values_only=True), start=1):
+            if number > MAX_SHEET_ROWS:
+                raise SheetError(f"{path}: more than {MAX_SHEET_ROWS} rows; a score sheet has one row "
+                                 "per node and item")
+            records.append((number, [_cell_text(v) for v in row]))
+    except SheetError:
+        raise
+    except Exception as exc:  # a damaged workbook fails while its rows are read
+        raise SheetError(f"{path}: the workbook cannot be read ({type(exc).__name__}: {exc})") from None
     finally:
         book.close()
     if not any(any(cell.strip() for cell in row) for _, row in records):
