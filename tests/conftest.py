@@ -17,6 +17,14 @@ import pytest
 ROOT = Path(__file__).resolve().parent.parent
 
 
+@pytest.fixture(scope="session", autouse=True)
+def checksum_cache(tmp_path_factory):
+    """Keep the remembered input checksums of the tests out of the user's configuration."""
+    path = tmp_path_factory.mktemp("checksums") / "checksums.json"
+    os.environ["FAVOUR_CHECKSUM_CACHE"] = str(path)
+    yield path
+
+
 @pytest.fixture(scope="session")
 def favour_provider(qgis_app, qgis_processing):
     """Register Favour's processing provider for the session and return it."""

@@ -110,18 +110,34 @@ def test_lineage_checksums_match_sha256sum(layers):
 
 
 def test_geotiff_carries_lineage_summary_and_writer_options(layers):
-    """The output is tiled 256 x 256, DEFLATE with predictor, nodata declared, lineage named."""
+    """The output is tiled 256 x 256, ZSTD level 1 with the float predictor by default, nodata declared."""
     folder, paths, _ = layers
-    evaluate_tree(Tree.from_dict(three_leaf_tree(paths)), str(folder / "fav.tif"))
+    result = evaluate_tree(Tree.from_dict(three_leaf_tree(paths)), str(folder / "fav.tif"))
     ds = gdal.Open(str(folder / "fav.tif"))
     band = ds.GetRasterBand(1)
     assert band.GetBlockSize() == [256, 256]
     assert band.GetNoDataValue() == -9999.0
-    assert ds.GetMetadata("IMAGE_STRUCTURE")["COMPRESSION"] == "DEFLATE"
+    assert ds.GetMetadata("IMAGE_STRUCTURE")["COMPRESSION"] == "ZSTD"
     assert ds.GetMetadata("IMAGE_STRUCTURE")["PREDICTOR"] == "3"
     assert ds.GetMetadataItem("FAVOUR_LINEAGE") == "fav.tif.lineage.json"
     assert "not a resource estimate" in ds.GetMetadataItem("FAVOUR_CAUTION")
     assert band.GetDescription() == "Favourability"
+    assert result.lineage["compression"]["method"] == "zstd"
+    assert "ZSTD_LEVEL=1" in result.lineage["compression"]["options"]
+
+
+@pytest.mark.parametrize("compress, tag", [("none", None), ("zstd", "ZSTD"), ("deflate", "DEFLATE"),
+                                           ("lzw", "LZW")])
+def test_every_compression_round_trips_the_cells_exactly(layers, compress, tag):
+    """Each compression gives back exactly the cells of an uncompressed run (GDAL reads them back)."""
+    folder, paths, _ = layers
+    tree = Tree.from_dict(three_leaf_tree(paths))
+    plain = evaluate_tree(tree, str(folder / "plain.tif"), compress="none")
+    packed = evaluate_tree(tree, str(folder / f"{compress}.tif"), compress=compress)
+    np.testing.assert_array_equal(read_raster(packed.output), read_raster(plain.output))
+    structure = gdal.Open(packed.output).GetMetadata("IMAGE_STRUCTURE")
+    assert structure.get("COMPRESSION") == tag
+    assert packed.lineage["compression"]["method"] == compress
 
 
 def test_node_rasters_are_written_for_components(layers):

@@ -37,6 +37,15 @@ class ConsoleFeedback(Feedback):
         print(f"warning: {text}", file=sys.stderr)
 
 
+def add_compression(parser) -> None:
+    """Add ``--compress`` to a subcommand that writes rasters."""
+    from ..raster.writer import COMPRESSIONS
+
+    parser.add_argument("--compress", choices=COMPRESSIONS, default=None,
+                        help="compression of the rasters (default: ZSTD level 1, or DEFLATE level 1 "
+                             "where GDAL has no ZSTD)")
+
+
 def add_common(parser) -> None:
     """Add the options every long-running subcommand takes: threads, verbose, quiet."""
     parser.add_argument("--threads", type=int, default=None, help="worker threads (default 2)")

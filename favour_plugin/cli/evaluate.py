@@ -5,7 +5,7 @@ from __future__ import annotations
 import sys
 
 from ..core.lineage import CAUTION
-from .console import add_common
+from .console import add_common, add_compression
 
 
 def add_parsers(sub) -> None:
@@ -15,6 +15,7 @@ def add_parsers(sub) -> None:
     evaluate.add_argument("-o", "--output", required=True, help="favourability GeoTIFF to write")
     evaluate.add_argument("--nodes", metavar="FOLDER",
                           help="also write one raster per component (and per node marked save_output)")
+    add_compression(evaluate)
     add_common(evaluate)
     evaluate.set_defaults(run=run_evaluate)
     reproduce = sub.add_parser(
@@ -28,7 +29,8 @@ def run_evaluate(args, feedback) -> int:
     """Evaluate the tree; print what was written."""
     from ..raster.engine import evaluate_tree_file
 
-    result = evaluate_tree_file(args.tree, args.output, args.nodes, feedback, args.threads)
+    result = evaluate_tree_file(args.tree, args.output, args.nodes, feedback, args.threads,
+                                compress=args.compress)
     print(f"favourability: {result.output}")
     for node, path in result.node_outputs.items():
         print(f"node raster:   {path}  ({node})")

@@ -16,7 +16,6 @@ wrong is named by field, e.g. ``inputs[2].files[0].sha256``.
 from __future__ import annotations
 
 import datetime as _dt
-import hashlib
 import json
 import os
 from collections.abc import Iterable
@@ -24,6 +23,7 @@ from pathlib import Path
 
 import numpy as np
 
+from . import checksums
 from .errors import LineageError, OutputError, TreeFileError
 from .jsonio import LINEAGE_MAX_BYTES, json_path, read_json_file
 from .schema import load_validator
@@ -52,13 +52,9 @@ def lineage_path(output: str | os.PathLike) -> Path:
     return Path(os.fspath(output) + SUFFIX)
 
 
-def file_digest(path: str | os.PathLike, chunk: int = 4 * 1024 * 1024) -> str:
-    """Return the SHA-256 hex digest of a file, read in chunks."""
-    digest = hashlib.sha256()
-    with open(path, "rb") as handle:
-        while block := handle.read(chunk):
-            digest.update(block)
-    return digest.hexdigest()
+def file_digest(path: str | os.PathLike) -> str:
+    """Return the SHA-256 hex digest of a file (remembered: :mod:`favour_plugin.core.checksums`)."""
+    return checksums.file_digest(path)
 
 
 def relevant_files(files: Iterable[str]) -> list[str]:

@@ -17,6 +17,8 @@ from qgis.core import (
     QgsProcessingException,
     QgsProcessingFeedback,
     QgsProcessingLayerPostProcessorInterface,
+    QgsProcessingParameterDefinition,
+    QgsProcessingParameterEnum,
     QgsProcessingUtils,
 )
 from qgis.PyQt.QtCore import QCoreApplication, QDir
@@ -25,6 +27,7 @@ from ..core.errors import CancelledError, FavourError, FavourWarning
 from ..core.feedback import Feedback
 from ..core.lineage import CAUTION, lineage_path, read_lineage
 from ..raster.style import style_path
+from ..raster.writer import COMPRESSIONS
 
 # Post-processors must outlive processAlgorithm: QGIS holds only a raw pointer.
 _POST_PROCESSORS: set = set()
@@ -157,6 +160,23 @@ def style_on_load(context, output: str) -> None:
 
 class FavourAlgorithm(QgsProcessingAlgorithm):
     """Base of Favour's algorithms: subclasses set ``NAME``, ``DISPLAY``, ``GROUP``, ``HELP``."""
+
+    COMPRESSION = "COMPRESSION"
+    COMPRESSION_CHOICES = ("default", *COMPRESSIONS)
+
+    def add_compression(self) -> None:
+        """Declare COMPRESSION (advanced): how the rasters are compressed, the fast default first."""
+        parameter = QgsProcessingParameterEnum(
+            self.COMPRESSION, self.tr("Compression of the rasters written (default: ZSTD level 1, "
+                                      "or DEFLATE level 1 where GDAL lacks ZSTD)"),
+            options=list(self.COMPRESSION_CHOICES), defaultValue="default", usesStaticStrings=True)
+        parameter.setFlags(parameter.flags() | QgsProcessingParameterDefinition.FlagAdvanced)
+        self.addParameter(parameter)
+
+    def compression_from(self, parameters, context) -> str | None:
+        """Return the compression chosen (None for the default)."""
+        choice = self.parameterAsEnumString(parameters, self.COMPRESSION, context)
+        return None if choice in ("", "default") else choice
 
     NAME = ""
     DISPLAY = ""

@@ -110,6 +110,7 @@ class CombineAlgorithm(FavourAlgorithm):
             self.NODATA_RULE, self.tr("Where an input is nodata"), options=list(NODATA_RULES),
             defaultValue="propagate", usesStaticStrings=True))
         self.addParameter(QgsProcessingParameterRasterDestination(self.OUTPUT, self.tr("Combined")))
+        self.add_compression()
         self.addOutput(QgsProcessingOutputFile(self.LINEAGE, self.tr("Lineage record")))
 
     def prepareAlgorithm(self, parameters, context, feedback):  # noqa: N802 (QGIS API name)
@@ -164,6 +165,7 @@ class CombineAlgorithm(FavourAlgorithm):
                "root": {"name": "Combined", "operator": operator, "children": children}}
         tree = run_guarded(Tree.from_dict, doc)
         progress.info(f"the output takes the grid of {os.path.basename(self._paths[0])}")
-        result = run_guarded(evaluate_tree, tree, output, None, progress, job="combine")
+        result = run_guarded(evaluate_tree, tree, output, None, progress, job="combine",
+                             compress=self.compression_from(parameters, context))
         style_on_load(context, result.output)
         return {self.OUTPUT: result.output, self.LINEAGE: result.lineage_file}

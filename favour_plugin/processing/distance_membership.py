@@ -53,6 +53,7 @@ class DistanceMembershipAlgorithm(MembershipParameters, FavourAlgorithm):
             self.REFERENCE, self.tr("Reference raster (the output takes its grid)")))
         self.add_membership_parameters()
         self.addParameter(QgsProcessingParameterRasterDestination(self.OUTPUT, self.tr("Membership")))
+        self.add_compression()
         self.addOutput(QgsProcessingOutputFile(self.LINEAGE, self.tr("Lineage record")))
 
     def prepareAlgorithm(self, parameters, context, feedback):  # noqa: N802 (QGIS API name)
@@ -78,6 +79,7 @@ class DistanceMembershipAlgorithm(MembershipParameters, FavourAlgorithm):
                              grid={"reference": self._reference})
         with self._features.kept_on_success():
             result = run_guarded(evaluate_tree, tree, output, None, ProcessingFeedback(feedback),
-                                 job="distance-membership")
+                                 job="distance-membership",
+                                 compress=self.compression_from(parameters, context))
         style_on_load(context, result.output)
         return {self.OUTPUT: result.output, self.LINEAGE: result.lineage_file}

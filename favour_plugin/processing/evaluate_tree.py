@@ -48,6 +48,7 @@ class EvaluateTreeAlgorithm(FavourAlgorithm):
             QgsProcessingParameterNumber.Integer, defaultValue=0, optional=True, minValue=0)
         cells.setFlags(cells.flags() | QgsProcessingParameterNumber.FlagAdvanced)
         self.addParameter(cells)
+        self.add_compression()
         self.addOutput(QgsProcessingOutputFile(self.LINEAGE, self.tr("Lineage record")))
 
     def processAlgorithm(self, parameters, context, feedback):  # noqa: N802 (QGIS API name)
@@ -58,7 +59,8 @@ class EvaluateTreeAlgorithm(FavourAlgorithm):
         note_temporary(feedback, output, node_folder)
         max_cells = self.parameterAsInt(parameters, self.MAX_CELLS, context) or None
         result = run_guarded(evaluate_tree_file, tree_file, output, node_folder,
-                             ProcessingFeedback(feedback), max_cells=max_cells)
+                             ProcessingFeedback(feedback), max_cells=max_cells,
+                             compress=self.compression_from(parameters, context))
         style_on_load(context, result.output)
         return {self.OUTPUT: result.output, self.LINEAGE: result.lineage_file,
                 self.NODE_FOLDER: node_folder}

@@ -156,6 +156,7 @@ class EvidenceWeightsAlgorithm(DepositParameters, FavourAlgorithm):
         self.addParameter(QgsProcessingParameterRasterDestination(
             self.OUTPUT_GENERALISED, self.tr("Generalised evidence"), optional=True,
             createByDefault=False))
+        self.add_compression()
         self.addOutput(QgsProcessingOutputNumber(self.BEST_CUT, self.tr("Best cut")))
         self.addOutput(QgsProcessingOutputNumber(self.BEST_CONTRAST, self.tr("Contrast at the best cut")))
         self.addOutput(QgsProcessingOutputNumber(
@@ -186,7 +187,8 @@ class EvidenceWeightsAlgorithm(DepositParameters, FavourAlgorithm):
                 evidence_weights, self._evidence, method=method, output_table=table, band=band,
                 unit_area_km2=unit, breaks=breaks, level=level, **inputs,
                 small_count=None if small == "none" else small, generalise_mode=mode,
-                output_generalised=generalised, feedback=ProcessingFeedback(feedback))
+                output_generalised=generalised, feedback=ProcessingFeedback(feedback),
+                compress=self.compression_from(parameters, context))
         for row in result.table.rows:
             feedback.pushInfo(_row_text(row))
         best = result.best

@@ -291,6 +291,7 @@ class MembershipAlgorithm(MembershipParameters, FavourAlgorithm):
             optional=True))
         self.add_membership_parameters()
         self.addParameter(QgsProcessingParameterRasterDestination(self.OUTPUT, self.tr("Membership")))
+        self.add_compression()
         self.addOutput(QgsProcessingOutputFile(self.LINEAGE, self.tr("Lineage record")))
 
     def prepareAlgorithm(self, parameters, context, feedback):  # noqa: N802 (QGIS API name)
@@ -310,6 +311,6 @@ class MembershipAlgorithm(MembershipParameters, FavourAlgorithm):
                 "membership": spec}
         tree = one_leaf_tree(f"Membership of {self._label}", "Membership", leaf)
         result = run_guarded(evaluate_tree, tree, output, None, ProcessingFeedback(feedback),
-                             job="membership")
+                             job="membership", compress=self.compression_from(parameters, context))
         style_on_load(context, result.output)
         return {self.OUTPUT: result.output, self.LINEAGE: result.lineage_file}

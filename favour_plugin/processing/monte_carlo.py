@@ -61,6 +61,7 @@ class MonteCarloAlgorithm(WorkshopAlgorithm):
             QgsProcessingParameterNumber.Double, 10.0, minValue=0.001, maxValue=99.999))
         for key, name in self._outputs():
             self.addParameter(QgsProcessingParameterRasterDestination(key, self.tr(MC_OUTPUTS[name])))
+        self.add_compression()
         self.addOutput(QgsProcessingOutputFile(self.LINEAGE, self.tr("Lineage record")))
 
     def _outputs(self):
@@ -81,7 +82,8 @@ class MonteCarloAlgorithm(WorkshopAlgorithm):
                    for key, name in self._outputs()}
         note_temporary(feedback, *outputs.values())
         result = run_guarded(monte_carlo, tree, sheets, outputs, n, seed, mode, weights, statistic, top,
-                             ProcessingFeedback(feedback), tree_file=tree_file)
+                             ProcessingFeedback(feedback), tree_file=tree_file,
+                             compress=self.compression_from(parameters, context))
         for path in result.files.values():
             style_on_load(context, path)
         found = {key: result.files[name] for key, name in self._outputs()}

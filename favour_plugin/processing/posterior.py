@@ -70,6 +70,7 @@ class PosteriorAlgorithm(DepositParameters, FavourAlgorithm):
             self.OUTPUT_STD, self.tr("Standard deviation of the posterior")))
         self.addParameter(QgsProcessingParameterFileDestination(
             self.OUTPUT_REPORT, self.tr("Report"), fileFilter="HTML files (*.html)", optional=True))
+        self.add_compression()
         self.addOutput(QgsProcessingOutputNumber(self.OBSERVED, self.tr("Observed deposits n")))
         self.addOutput(QgsProcessingOutputNumber(self.PREDICTED, self.tr("Predicted deposits T")))
         self.addOutput(QgsProcessingOutputNumber(self.RATIO, self.tr("n / T")))
@@ -97,7 +98,8 @@ class PosteriorAlgorithm(DepositParameters, FavourAlgorithm):
             result = run_guarded(
                 posterior, self._evidence, output_probability=probability, output_std=spread,
                 output_report=report, tables=tables, unit_area_km2=unit, s_p_rule=rule,
-                feedback=ProcessingFeedback(feedback), **inputs)
+                feedback=ProcessingFeedback(feedback), compress=self.compression_from(parameters, context),
+                **inputs)
         overall = result.checks["overall"]
         feedback.pushInfo(f"n = {overall['observed']}, T = {overall['predicted']:.4g}, "
                           f"n/T = {overall['ratio']:.3f}, Agterberg–Cheng p = {overall['p_value']:.3g}")

@@ -43,7 +43,7 @@ from .sources import BlockReader, SourceSpec, cache_need, open_raster, raster_so
 from .streaming import DEFAULT_THREADS, map_windows
 from .style import membership_style, style_path
 from .vector import vector_source
-from .writer import RasterWriter, check_raster_name
+from .writer import RasterWriter, check_raster_name, compression_options, compression_record
 
 
 @dataclass
@@ -146,7 +146,8 @@ class _Hasher(threading.Thread):
 def evaluate_tree(tree: Tree, output: str, node_folder: str | None = None,
                   feedback: Feedback | None = None, grid: Grid | None = None,
                   threads: int | None = None, job: str = "evaluate-tree",
-                  tree_file: str | None = None, max_cells: int | None = None) -> EvaluationResult:
+                  tree_file: str | None = None, max_cells: int | None = None,
+                  compress: str | None = None) -> EvaluationResult:
     """Evaluate a criteria tree onto its grid and write the favourability raster with lineage.
 
     Parameters
@@ -170,6 +171,9 @@ def evaluate_tree(tree: Tree, output: str, node_folder: str | None = None,
     max_cells : int, optional
         Coarsen the grid by a whole factor until it has at most this many
         cells (a quick look); the lineage records the factor.
+    compress : str, optional
+        Compression of the rasters written (:func:`~.writer.compression_options`;
+        None: the fast default); recorded in the lineage.
 
     Returns
     -------
@@ -186,6 +190,7 @@ def evaluate_tree(tree: Tree, output: str, node_folder: str | None = None,
     feedback = feedback or Feedback()
     threads = threads or DEFAULT_THREADS
     plan = tree.compile()
+    compression_options(compress)  # an unknown compression is refused before any work
     output = os.path.abspath(output)
     check_raster_name(output)
     node_folder = os.path.abspath(node_folder) if node_folder else None
@@ -195,7 +200,7 @@ def evaluate_tree(tree: Tree, output: str, node_folder: str | None = None,
     with OutputJob([output, *node_outputs.values()], [node_folder] if node_folder else []) as run:
         with gdal_job():
             return _evaluate(tree, plan, output, node_outputs, feedback, grid, threads, job,
-                             tree_file, run.workdir, run.outputs, max_cells)
+                             tree_file, run.workdir, run.outputs, max_cells, compress)
 
 
 def _node_outputs(plan: EvaluationPlan, node_folder: str | None) -> dict[str, str]:
@@ -361,14 +366,15 @@ def base_record(job: str, created: str, tree: Tree, plan: EvaluationPlan, prepar
 
 
 def _evaluate(tree, plan, output, node_outputs, feedback, grid, threads, job, tree_file,
-              workdir, outputs, max_cells) -> EvaluationResult:
+              workdir, outputs, max_cells, compress=None) -> EvaluationResult:
     """Body of :func:`evaluate_tree`, run inside the GDAL job settings."""
     created = lin.utc_now()
     prepared = prepare_inputs(tree, plan, grid, workdir, feedback, tree_file, max_cells)
     grid = prepared.grid
-    writers = {plan.root_path: RasterWriter(output, grid, plan.root_path, outputs=outputs)}
+    writers = {plan.root_path: RasterWriter(output, grid, plan.root_path, outputs=outputs,
+                                            compress=compress)}
     for path, file in node_outputs.items():
-        writers[path] = RasterWriter(file, grid, path, outputs=outputs)
+        writers[path] = RasterWriter(file, grid, path, outputs=outputs, compress=compress)
 
     stats = _stream(plan, prepared.sources, grid, writers, feedback, threads, (0.15, 0.97))
     root_stats = stats[plan.root_path]
@@ -383,6 +389,7 @@ def _evaluate(tree, plan, output, node_outputs, feedback, grid, threads, job, tr
     record = {
         **base_record(job, created, tree, plan, prepared, tree_file, threads),
         "statistics": stats,
+        "compression": compression_record(writers[plan.root_path]),
         "outputs": {"favourability": output, "nodes": dict(node_outputs)},
         "lineage_file": os.path.basename(str(lin.lineage_path(output))),
         "warnings": list(feedback.warnings),
@@ -427,11 +434,11 @@ def _stream(plan: EvaluationPlan, sources: dict[str, SourceSpec], grid: Grid,
 
 def evaluate_tree_file(tree_file: str, output: str, node_folder: str | None = None,
                        feedback: Feedback | None = None, threads: int | None = None,
-                       max_cells: int | None = None) -> EvaluationResult:
+                       max_cells: int | None = None, compress: str | None = None) -> EvaluationResult:
     """Load a tree file and evaluate it (see :func:`evaluate_tree`)."""
     tree = Tree.load(tree_file)
     return evaluate_tree(tree, output, node_folder, feedback, threads=threads, tree_file=tree_file,
-                         max_cells=max_cells)
+                         max_cells=max_cells, compress=compress)
 
 
 #: Jobs whose output is one tree evaluated on a grid, which :func:`reproduce` can run again.

@@ -46,7 +46,7 @@ from .grid import Grid
 from .outputs import OutputJob, check_apart, stage_lineage
 from .streaming import DEFAULT_THREADS, map_windows
 from .style import membership_style, style_path
-from .writer import RasterWriter, check_raster_name
+from .writer import RasterWriter, check_raster_name, compression_options, compression_record
 
 #: The rasters a Monte Carlo writes, and what each holds.
 MC_OUTPUTS = {
@@ -178,7 +178,7 @@ def monte_carlo(tree: Tree, sheets: Sequence[str], outputs: Mapping[str, str], n
                 seed: int = 1, mode: str = "experts", expert_weights: Mapping[str, float] | None = None,
                 statistic: str = "pool", top_percent: float = 10.0, feedback: Feedback | None = None,
                 threads: int | None = None, tree_file: str | None = None,
-                pilot_cells: int = PILOT_CELLS) -> EnsembleResult:
+                pilot_cells: int = PILOT_CELLS, compress: str | None = None) -> EnsembleResult:
     """Evaluate N realisations drawn from the workshop's score sheets in one streamed pass.
 
     Parameters
@@ -199,6 +199,8 @@ def monte_carlo(tree: Tree, sheets: Sequence[str], outputs: Mapping[str, str], n
         As for :func:`~.engine.evaluate_tree`.
     pilot_cells : int
         Cells the pilot samples for the top-area thresholds.
+    compress : str, optional
+        Compression of the rasters (:func:`~.writer.compression_options`).
 
     Returns
     -------
@@ -224,6 +226,7 @@ def monte_carlo(tree: Tree, sheets: Sequence[str], outputs: Mapping[str, str], n
     outputs = {name: os.path.abspath(path) for name, path in outputs.items()}
     for path in outputs.values():
         check_raster_name(path)
+    compression_options(compress)
     sheets = [os.path.abspath(s) for s in sheets]
     base = tree.compile()
     planned = [(f"the {name} raster", path) for name, path in outputs.items()]
@@ -243,7 +246,7 @@ def monte_carlo(tree: Tree, sheets: Sequence[str], outputs: Mapping[str, str], n
         histograms, sampled = _pilot(base, plans, prepared, feedback, threads, pilot_cells, (0.05, 0.15))
         thresholds = histograms.top_thresholds(top_percent)
         grid = prepared.grid
-        writers = {name: RasterWriter(path, grid, MC_OUTPUTS[name], outputs=run.outputs)
+        writers = {name: RasterWriter(path, grid, MC_OUTPUTS[name], outputs=run.outputs, compress=compress)
                    for name, path in outputs.items()}
         above = np.zeros(n, dtype=np.int64)
         valid = np.zeros(n, dtype=np.int64)
@@ -286,6 +289,7 @@ def monte_carlo(tree: Tree, sheets: Sequence[str], outputs: Mapping[str, str], n
             "sheets": lin.describe_files(sheets),
             "realisations": values,
             "top_area": note,
+            "compression": compression_record(next(iter(writers.values()))),
             "outputs": dict(outputs),
             "warnings": list(feedback.warnings),
         }

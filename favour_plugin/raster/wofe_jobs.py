@@ -44,10 +44,16 @@ from .outputs import OutputJob, OutputSet, check_apart, stage_lineage
 from .sources import SourceSpec, open_raster, raster_source
 from .streaming import map_windows
 from .style import membership_style, style_path
-from .writer import RasterWriter, check_raster_name
+from .writer import RasterWriter, check_raster_name, compression_options
 
 #: Breaks placed at quantiles of a sample when continuous ordered evidence comes without breaks.
 AUTO_BREAKS = 20
+
+
+def _compression(compress: str | None, classes: bool = False) -> dict:
+    """Return the lineage's account of a compression choice (refusing an unknown one)."""
+    method, options = compression_options(compress, classes)
+    return {"method": method, "options": options}
 
 
 def _check_text_output(path: str, suffixes: tuple[str, ...], what: str) -> str:
@@ -125,7 +131,7 @@ def evidence_weights(evidence: str, deposits: str, method: str, output_table: st
                      breaks: list[float] | None = None, level: float = wofe.DEFAULT_LEVEL,
                      small_count: str | None = None, generalise_mode: str = "ternary",
                      output_generalised: str | None = None,
-                     feedback: Feedback | None = None) -> EvidenceResult:
+                     feedback: Feedback | None = None, compress: str | None = None) -> EvidenceResult:
     """Weights of evidence of one evidence raster against deposit points.
 
     Parameters
@@ -163,6 +169,8 @@ def evidence_weights(evidence: str, deposits: str, method: str, output_table: st
         table beside it (``<raster>.weights.csv``).
     feedback : Feedback, optional
         Progress, notes, warnings and cancel.
+    compress : str, optional
+        Compression of the generalised raster (:func:`~.writer.compression_options`).
 
     Raises
     ------
@@ -177,6 +185,7 @@ def evidence_weights(evidence: str, deposits: str, method: str, output_table: st
     if generalise_mode not in ("ternary", "binary"):
         raise ParameterError(f"generalisation must be 'ternary' or 'binary', got {generalise_mode!r}")
     output_table = _check_text_output(output_table, (".csv",), "weights table")
+    _compression(compress)
     finals = [output_table]
     planned = [("the weights table", output_table),
                ("its lineage", str(lin.lineage_path(output_table)))]
@@ -222,12 +231,13 @@ def evidence_weights(evidence: str, deposits: str, method: str, output_table: st
         writer = None
         if output_generalised:
             writer = _generalised(result, counts, spec, grid, study, codes, method, level,
-                                  generalise_mode, output_generalised, feedback, run.outputs)
+                                  generalise_mode, output_generalised, feedback, run.outputs, compress)
         feedback.check_cancelled()
         inputs = _describe_inputs([(role.removeprefix("the "), path, vector) for role, path, vector in read])
         parameters = {"method": method, "band": band, "unit_area_km2": unit_area_km2,
                       "cell_area_km2": cell_km2, "breaks": codes, "level": level,
-                      "small_count": small_count, "generalise": generalise_mode}
+                      "small_count": small_count, "generalise": generalise_mode,
+                      "compression": _compression(compress, classes=True)}
         record = _record("evidence-weights", grid, inputs, parameters, feedback, created,
                          deposits=points.record, counts=counts.as_dict(), table=table.as_dict(),
                          best_cut=None if best is None else best.__dict__,
@@ -282,7 +292,8 @@ def _describe_cut(best: wofe.BestCut, name: str) -> str:
 
 def _generalised(result: EvidenceResult, counts: wofe.ClassCounts, spec: SourceSpec, grid: Grid,
                  study: SourceSpec | None, codes, method: str, level: float, mode: str,
-                 output: str, feedback: Feedback, outputs: OutputSet) -> RasterWriter | None:
+                 output: str, feedback: Feedback, outputs: OutputSet,
+                 compress: str | None = None) -> RasterWriter | None:
     """Stream the generalised evidence into a writer (not yet finished); return the writer."""
     table = result.table
     if method in ("ascending", "descending"):
@@ -307,7 +318,8 @@ def _generalised(result: EvidenceResult, counts: wofe.ClassCounts, spec: SourceS
     else:
         mapping = {0.0: 0.0, 1.0: 1.0}
         result.generalised_table = table
-    writer = RasterWriter(output, grid, f"{table.name} generalised", classes=True, outputs=outputs)
+    writer = RasterWriter(output, grid, f"{table.name} generalised", classes=True, outputs=outputs,
+                          compress=compress)
     recode = _recoder(mapping, spec, codes, method)
     for window, block in map_windows(lambda window, reader: _masked(recode(window, reader), window,
                                                                    reader, study),
@@ -393,7 +405,8 @@ def posterior(evidence: list[str], deposits: str, output_probability: str, outpu
               output_report: str | None = None, tables: list[str] | None = None,
               deposits_layer: str | None = None, unit_area_km2: float = 1.0,
               study_area: str | None = None, study_layer: str | None = None,
-              s_p_rule: str = "delta", feedback: Feedback | None = None) -> PosteriorResult:
+              s_p_rule: str = "delta", feedback: Feedback | None = None,
+              compress: str | None = None) -> PosteriorResult:
     """Posterior probability per unit cell from generalised evidence, with its standard deviation.
 
     Parameters
@@ -422,6 +435,8 @@ def posterior(evidence: list[str], deposits: str, output_probability: str, outpu
         How s(P) follows from s(logit) (core.wofe.s_probability).
     feedback : Feedback, optional
         Progress, notes, warnings and cancel.
+    compress : str, optional
+        Compression of the two rasters (:func:`~.writer.compression_options`).
     """
     feedback = feedback or Feedback()
     if not evidence:
@@ -431,6 +446,7 @@ def posterior(evidence: list[str], deposits: str, output_probability: str, outpu
                              "one per raster, in the same order, or none")
     for path in (output_probability, output_std):
         check_raster_name(path)
+    _compression(compress)
     output_probability, output_std = os.path.abspath(output_probability), os.path.abspath(output_std)
     finals = [output_probability, output_std]
     planned = [("the posterior probability", output_probability),
@@ -476,9 +492,9 @@ def posterior(evidence: list[str], deposits: str, output_probability: str, outpu
         checks = wofe.conditional_independence(conditions, layers, unit_area_km2, cell_km2, prior,
                                                s_p_rule, feedback=feedback)
         writers = [RasterWriter(output_probability, grid, "posterior probability per unit cell",
-                                outputs=run.outputs),
+                                outputs=run.outputs, compress=compress),
                    RasterWriter(output_std, grid, "standard deviation of the posterior",
-                                outputs=run.outputs)]
+                                outputs=run.outputs, compress=compress)]
         highest = _write_posterior(specs, layers, prior, grid, study, writers, s_p_rule, feedback,
                                    (0.45, 0.95))
         feedback.check_cancelled()
@@ -486,7 +502,8 @@ def posterior(evidence: list[str], deposits: str, output_probability: str, outpu
         entries += [("weights table", t, False) for t in tables or ()]
         entries += [("study area", study_area, True)] if study_area else []
         parameters = {"unit_area_km2": unit_area_km2, "cell_area_km2": cell_km2,
-                      "s_p_rule": s_p_rule, "tables_given": tables is not None}
+                      "s_p_rule": s_p_rule, "tables_given": tables is not None,
+                      "compression": _compression(compress)}
         summary = {"prior": prior.__dict__, "layers": [_layer_summary(layer) for layer in layers],
                    "checks": checks, "deposits": points.record}
         record = _record("posterior", grid, _describe_inputs(entries), parameters, feedback,

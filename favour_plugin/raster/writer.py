@@ -1,7 +1,9 @@
 """Write float rasters block by block to a temporary file, put in place only on success.
 
-Output is a tiled (256 x 256) GeoTIFF, DEFLATE with the floating-point
-predictor, BigTIFF when the size calls for it, nodata declared. The cells go
+Output is a tiled (256 x 256) GeoTIFF, compressed as the user chose (by
+default ZSTD level 1, or DEFLATE level 1 where GDAL has no ZSTD, with the
+floating-point predictor; :func:`compression_options`) on every core,
+BigTIFF when the size calls for it, nodata declared. The cells go
 to a hidden temporary file beside the final name, reserved from an
 :class:`~favour_plugin.raster.outputs.OutputSet`; nothing appears under the
 final name until the set is committed, and an error or a cancel leaves the
@@ -23,14 +25,55 @@ import threading
 import numpy as np
 from osgeo import gdal
 
-from ..core.errors import OutputError
+from ..core.errors import OutputError, ParameterError
 from .blocks import Window
 from .grid import Grid
 from .outputs import OutputSet
 
 NODATA = -9999.0
-CREATION_OPTIONS = ("TILED=YES", "BLOCKXSIZE=256", "BLOCKYSIZE=256", "COMPRESS=DEFLATE",
-                    "PREDICTOR=3", "BIGTIFF=IF_SAFER", "NUM_THREADS=ALL_CPUS")
+#: Options every output takes: 256 x 256 tiles, BigTIFF when needed, compression on every core.
+BASE_OPTIONS = ("TILED=YES", "BLOCKXSIZE=256", "BLOCKYSIZE=256", "BIGTIFF=IF_SAFER", "NUM_THREADS=ALL_CPUS")
+#: The compressions a user may choose; ``None`` (the default) is the fastest good one GDAL has.
+COMPRESSIONS = ("none", "zstd", "deflate", "lzw")
+
+
+def zstd_available() -> bool:
+    """Return True when the GDAL in use writes ZSTD-compressed GeoTIFFs."""
+    options = gdal.GetDriverByName("GTiff").GetMetadataItem("DMD_CREATIONOPTIONLIST") or ""
+    return "ZSTD" in options
+
+
+def compression_options(compress: str | None, classes: bool = False) -> tuple[str, list[str]]:
+    """Return the compression's name and its GeoTIFF creation options.
+
+    Parameters
+    ----------
+    compress : {None, "none", "zstd", "deflate", "lzw"}
+        None is the default: ZSTD at level 1 where the GDAL in use has ZSTD,
+        else DEFLATE at level 1 — fast to write, a few per cent larger than
+        the slow levels. An explicit ``zstd`` is level 1 too; ``deflate`` is
+        GDAL's level 6 (smaller, slower); every compression uses the
+        floating-point predictor (the horizontal one for class codes).
+    classes : bool
+        Whole-number class codes (Int16) rather than float32 values.
+
+    Raises
+    ------
+    ParameterError
+        An unknown compression, or ZSTD where this GDAL lacks it.
+    """
+    predictor = "PREDICTOR=2" if classes else "PREDICTOR=3"
+    if compress is None:
+        name, options = ("zstd", ["COMPRESS=ZSTD", "ZSTD_LEVEL=1", predictor]) if zstd_available() else \
+            ("deflate", ["COMPRESS=DEFLATE", "ZLEVEL=1", predictor])
+        return name, [*BASE_OPTIONS, *options]
+    if compress not in COMPRESSIONS:
+        raise ParameterError(f"compression must be one of {', '.join(COMPRESSIONS)}, got {compress!r}")
+    if compress == "zstd" and not zstd_available():
+        raise ParameterError(f"this GDAL ({gdal.__version__}) cannot write ZSTD; choose deflate, lzw or none")
+    options = {"none": ["COMPRESS=NONE"], "zstd": ["COMPRESS=ZSTD", "ZSTD_LEVEL=1", predictor],
+               "deflate": ["COMPRESS=DEFLATE", predictor], "lzw": ["COMPRESS=LZW", predictor]}[compress]
+    return compress, [*BASE_OPTIONS, *options]
 
 _close_lock = threading.Lock()
 
@@ -79,6 +122,11 @@ def _space(path: str) -> str:
     return f"the disk holding {folder} has {free / 2**20:.1f} MiB free"
 
 
+def compression_record(writer: RasterWriter) -> dict:
+    """Return what the lineage says of a writer's compression: the method and the creation options."""
+    return {"method": writer.compression, "options": list(writer.options)}
+
+
 class RasterWriter:
     """A one-band float32 GeoTIFF on ``grid``, written block by block to a temporary file.
 
@@ -96,21 +144,23 @@ class RasterWriter:
     outputs : OutputSet, optional
         The job's outputs, committed together. Without one the writer keeps
         a set of its own and :meth:`commit` puts the file in place.
+    compress : str, optional
+        See :func:`compression_options` (None: the fast default).
     """
 
     def __init__(self, path: str, grid: Grid, description: str = "", classes: bool = False,
-                 outputs: OutputSet | None = None) -> None:
+                 outputs: OutputSet | None = None, compress: str | None = None) -> None:
         check_raster_name(path)
         self.path = os.path.abspath(path)
         self._own = outputs is None
         self.outputs = outputs if outputs is not None else OutputSet()
         self.outputs.folder(os.path.dirname(self.path))
+        self.compression, options = compression_options(compress, classes)
+        self.options = tuple(options)
         self.tmp_path = self.outputs.reserve(self.path, ".tif")
         self.outputs.remove_on_commit(self.path + ".aux.xml")  # statistics of an earlier file
         self._ds = None
         try:
-            options = [o if o != "PREDICTOR=3" or not classes else "PREDICTOR=2"
-                       for o in CREATION_OPTIONS]
             self._ds = gdal.GetDriverByName("GTiff").Create(
                 self.tmp_path, grid.width, grid.height, 1,
                 gdal.GDT_Int16 if classes else gdal.GDT_Float32, options)
