@@ -13,7 +13,7 @@ import os
 
 import pytest
 
-from favour_plugin.core.errors import ParameterError, TreeFileError
+from favour_plugin.core.errors import TreeFileError
 from favour_plugin.core.tree import COMPONENTS, Node, Proxy, Tree
 from tests.helpers import leaf, tree_doc
 
@@ -44,25 +44,12 @@ def test_new_model_has_the_four_components_in_order():
         f"Favourability > {c.name}" for c in tree.root.children)
 
 
-def test_add_child_returns_its_path_and_refuses_a_taken_name():
-    """Adding gives the new path; a sibling's name is refused and the tree stays as it was."""
+def test_add_child_returns_its_path():
+    """Adding gives the new path (the refused additions are rows of tests/test_refusals.py)."""
     tree = sample_tree()
     path = tree.add_child("Favourability > Group", Node(name="Delta"))
     assert path == "Favourability > Group > Delta"
     assert tree.find(path).name == "Delta"
-    before = tree.to_dict()
-    with pytest.raises(ParameterError, match="already has a criterion named 'Alpha'"):
-        tree.add_child("Favourability", Node(name="Alpha"))
-    with pytest.raises(ParameterError, match="must not contain '>'"):
-        tree.add_child("Favourability", Node(name="A > B"))
-    assert tree.to_dict() == before
-
-
-def test_add_child_refuses_a_leaf_that_reads_a_layer():
-    """A criterion scored from a layer cannot take criteria under it."""
-    tree = sample_tree()
-    with pytest.raises(ParameterError, match="cannot take criteria under it"):
-        tree.add_child("Favourability > Alpha", Node(name="Sub"))
 
 
 def test_add_at_index_and_index_of_agree():
@@ -80,8 +67,6 @@ def test_remove_takes_the_subtree_and_keeps_the_rest():
     removed = tree.remove("Favourability > Group")
     assert removed.name == "Group"
     assert names(tree) == [p for p in everything if not p.startswith("Favourability > Group")]
-    with pytest.raises(ParameterError, match="root"):
-        tree.remove("Favourability")
     with pytest.raises(KeyError):
         tree.remove("Favourability > Nowhere")
 
@@ -93,15 +78,11 @@ def test_rename_changes_the_path_of_the_subtree():
     assert "Favourability > Structures > Gamma" in names(tree)
     assert tree.rename("Favourability", "Model") == "Model"
     assert tree.find("Model > Alpha").name == "Alpha"
-    with pytest.raises(ParameterError, match="already has a criterion named 'Beta'"):
-        tree.rename("Model > Alpha", "Beta")
-    with pytest.raises(ParameterError, match="non-empty"):
-        tree.rename("Model > Alpha", "  ")
     assert tree.rename("Model > Alpha", "Alpha") == "Model > Alpha"  # its own name is not taken
 
 
 def test_move_reorders_and_reparents_without_losing_nodes():
-    """Moves keep the set of leaves; a node cannot go under itself; names stay unique."""
+    """Moves keep the set of leaves (refused moves are rows of tests/test_refusals.py)."""
     tree = sample_tree()
     leaves = sorted(n.name for _, n in tree.walk() if n.is_leaf)
     assert tree.move("Favourability > Beta", "Favourability", 0) == "Favourability > Beta"
@@ -109,13 +90,6 @@ def test_move_reorders_and_reparents_without_losing_nodes():
     assert tree.move("Favourability > Alpha", "Favourability > Group", 0) == "Favourability > Group > Alpha"
     assert [c.name for c in tree.find("Favourability > Group").children] == ["Alpha", "Gamma"]
     assert sorted(n.name for _, n in tree.walk() if n.is_leaf) == leaves
-    tree.add_child("Favourability", Node(name="Gamma", operator={"type": "and"}))
-    before = tree.to_dict()
-    with pytest.raises(ParameterError, match="under itself"):
-        tree.move("Favourability > Group", "Favourability > Group", 0)
-    with pytest.raises(ParameterError, match="already has a criterion named 'Gamma'"):
-        tree.move("Favourability > Group > Gamma", "Favourability", 0)
-    assert tree.to_dict() == before
 
 
 def test_unique_name_counts_up_past_taken_names():
@@ -162,10 +136,6 @@ def test_from_draft_keeps_a_half_finished_model_that_from_dict_refuses():
         Tree.from_dict(doc)
     again = Tree.from_draft(copy.deepcopy(doc))
     assert again.to_dict() == doc
-    with pytest.raises(TreeFileError, match="'root' object"):
-        Tree.from_draft({"format": "favour-tree"})
-    with pytest.raises(TreeFileError, match="lacks"):
-        Tree.from_draft({"root": {"operator": {"type": "and"}}})
 
 
 def test_edits_leave_unknown_fields_alone():

@@ -60,7 +60,7 @@ from favour_plugin.core.pairwise import matrix_from_judgements, pairwise_weights
 from favour_plugin.core.scoring import Scores, Workshop
 from favour_plugin.core.sheet_import import read_sheets
 from favour_plugin.core.sheets import export_sheets, write_sheet
-from favour_plugin.core.tree import MAX_NODES, Tree
+from favour_plugin.core.tree import MAX_NODES, Node, Tree
 from favour_plugin.core.uncertainty import MAX_DRAWS, sample_trees, sensitivity_variants
 from favour_plugin.core.wofe import WeightsTable
 from favour_plugin.core.workshop import check_expert_weights
@@ -148,6 +148,7 @@ from tests.refusal_cases import (
     then,
     three_experts,
     truncated_tree,
+    unchanged,
     varied_tree_file,
     weights_into_source,
     with_surrogate_name,
@@ -242,6 +243,8 @@ RULE_SAMPLER = ("A Monte Carlo request for fewer than 1 realisation, with a seed
                 "number from 0, or with an unknown sampling mode or statistic.")
 RULE_NO_VALID_DRAW = "Experts' ranges from which no valid membership can be drawn."
 RULE_SENSITIVITY = "A sensitivity weight change that is not a fraction strictly between 0 and 1."
+RULE_EDIT = ("An edit of the tree that would give two siblings one name, a name that is empty or holds '>', "
+             "criteria under a leaf that reads a layer, a node under itself, or no root.")
 RULE_MC_REQUEST = ("A Monte Carlo or sensitivity run asked for outputs it does not write, a top area "
                    "outside 0–100 %, or a table that is not CSV.")
 
@@ -955,6 +958,52 @@ CASES += [
            lambda s, fraction=fraction: partial(sensitivity_variants, scored_tree(), fraction),
            ParameterError, "fraction between 0 and 1")
       for fraction in [0, 1, 1.5, -0.1, float("nan"), True, "0.1"]],
+]
+
+
+def _edit_tree() -> Tree:
+    """A small sound tree for the edit refusals: root AND over two leaves and a group with one leaf."""
+    linear = {"type": "linear", "lower": 0, "upper": 1}
+    return Tree.from_dict(tree_doc([
+        leaf("Alpha", "layers/a.tif", linear), leaf("Beta", "/data/b.tif", linear),
+        {"name": "Group", "operator": {"type": "or"},
+         "children": [leaf("Gamma", "layers/sub/c.tif", linear)]}]))
+
+
+def _edit_case(name: str, edit, message: str, prepare=None) -> Case:
+    """An edit of the dock's tree (core.tree) that must be refused, leaving the tree as it was."""
+    def make(scene: Scene):
+        tree = _edit_tree()
+        if prepare is not None:
+            prepare(tree)
+        return unchanged(tree, lambda: edit(tree))
+    return Case(f"edit: {name}", RULE_EDIT, "core", make, ParameterError, message)
+
+
+CASES += [
+    _edit_case("add a sibling's name", lambda t: t.add_child("Favourability", Node(name="Alpha")),
+               "already has a criterion named 'Alpha'"),
+    _edit_case("add a name holding '>'", lambda t: t.add_child("Favourability", Node(name="A > B")),
+               "must not contain '>'"),
+    _edit_case("add under a leaf that reads a layer",
+               lambda t: t.add_child("Favourability > Alpha", Node(name="Sub")),
+               "cannot take criteria under it"),
+    _edit_case("remove the root", lambda t: t.remove("Favourability"),
+               "the root of the tree cannot be removed"),
+    _edit_case("rename to a sibling's name", lambda t: t.rename("Favourability > Alpha", "Beta"),
+               "already has a criterion named 'Beta'"),
+    _edit_case("rename to blanks", lambda t: t.rename("Favourability > Alpha", "  "), "non-empty"),
+    _edit_case("move a node under itself",
+               lambda t: t.move("Favourability > Group", "Favourability > Group", 0),
+               "cannot be moved under itself"),
+    _edit_case("move next to a sibling of the same name",
+               lambda t: t.move("Favourability > Group > Gamma", "Favourability", 0),
+               "already has a criterion named 'Gamma'",
+               prepare=lambda t: t.add_child("Favourability", Node(name="Gamma", operator={"type": "and"}))),
+    Case("a stored tree without a root object", RULE_DRAFT, "core",
+         lambda s: partial(Tree.from_draft, {"format": "favour-tree"}), TreeFileError, "'root' object"),
+    Case("a stored node without a name", RULE_DRAFT, "core",
+         lambda s: partial(Tree.from_draft, {"root": {"operator": {"type": "and"}}}), TreeFileError, "lacks"),
 ]
 
 

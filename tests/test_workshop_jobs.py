@@ -130,3 +130,14 @@ def test_processing_workshop_steps_run_in_order(tmp_path, favour_provider):
     assert pair["CR"] == pytest.approx(0.0, abs=1e-12) and pair["WEIGHTS"].startswith("Mag=0.6")
     sens = processing.run("favour:sensitivity", {"TREE": tree_file, "OUTPUT_TABLE": str(tmp_path / "s.csv")})
     assert open(sens["OUTPUT_TABLE"], encoding="utf-8").read().startswith("label,node,change")
+
+
+def test_a_third_round_follows_the_second(tmp_path):
+    """Sheets written from round-2 sheets are round 3: named -round3 and declaring round 3."""
+    from favour_plugin.core.sheet_import import declared_round
+
+    tree, _, sheets = small_workshop(tmp_path)
+    second = write_score_sheets(tree, str(tmp_path / "round2"), previous_sheets=sheets)
+    third = write_score_sheets(tree, str(tmp_path / "round3"), previous_sheets=second)
+    assert [declared_round(p) for p in (sheets[0], second[0], third[0])] == [1, 2, 3]
+    assert third[0].endswith("E1-round3.csv")

@@ -312,6 +312,28 @@ def _row_of(source: str) -> int:
     return int(match.group(1)) if match else 0
 
 
+_ROUND = re.compile(r"^#\s*Favour score sheet\b.*?\bround (\d+)\.")
+
+
+def declared_round(path: Path | str) -> int:
+    """Return the round a sheet says it belongs to in its first comment line (1 if it says none).
+
+    Sheets written by :func:`favour_plugin.core.sheets.write_sheet` start with
+    ``# Favour score sheet, format 1. Expert …; tree …; round N.``.
+
+    Raises
+    ------
+    SheetError
+        The file cannot be read.
+    """
+    for _, row in _records(Path(path))[:10]:
+        if row and row[0].lstrip().startswith("#"):
+            match = _ROUND.match(",".join(row).strip())  # the line holds commas: CSV split it
+            if match:
+                return int(match.group(1))
+    return 1
+
+
 def read_sheets(paths: Iterable[Path | str], tree: Tree, *, round_number: int = 1) -> Scores:
     """Read and check the score sheets of one round; return them as :class:`Scores`.
 

@@ -57,6 +57,8 @@ class DockActions:
         self.remove = make("remove", tr("Remove"), tr("Remove the node and everything under it"))
         self.up = make("move-up", tr("Move up"), tr("Move the node up among its siblings"))
         self.down = make("move-down", tr("Move down"), tr("Move the node down among its siblings"))
+        self.pairwise = make("pairwise", tr("Pairwise weights…"),
+                             tr("Weigh the criteria under the selected node by comparing them two at a time"))
 
     def toolbar(self, parent) -> QToolBar:
         """Return a toolbar holding the actions in their groups."""
@@ -64,7 +66,7 @@ class DockActions:
         bar.setIconSize(bar.iconSize() * 0.75)
         for group in ((self.new, self.open, self.save), (self.undo, self.redo),
                       (self.add_component, self.add_group, self.add_criterion, self.add_layer),
-                      (self.remove, self.up, self.down)):
+                      (self.remove, self.up, self.down), (self.pairwise,)):
             for action in group:
                 bar.addAction(action)
             bar.addSeparator()

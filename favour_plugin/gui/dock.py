@@ -21,6 +21,7 @@ from qgis.PyQt.QtWidgets import (
     QScrollArea,
     QSplitter,
     QStackedWidget,
+    QTabWidget,
     QVBoxLayout,
     QWidget,
 )
@@ -29,17 +30,19 @@ from ..core.errors import FavourError, TreeFileError
 from ..core.lineage import CAUTION
 from ..core.tree import PATH_SEPARATOR, Proxy
 from .actions import DockActions
-from .common import notify, tr
+from .common import icon, notify, tr
 from .defaults import starting_for_proxy
 from .histogram import SampleService
 from .layers import UnusableLayerError, dropped_layers, layer_value_range, proxy_from_layer
 from .node_editor import NodeEditor
 from .output_folders import DefaultFolder, default_output, display_path, ensure_writable, quick_look_folder
+from .pairwise_dialog import PairwiseDialog
 from .problems import ProblemChecker
 from .results import add_results
 from .run_bar import RunBar
 from .run_job import RunJob, remove_empty_folders, run_folder
 from .tree_view import CriteriaTreeView
+from .workshop_view import WorkshopView
 
 
 class FavourDock(QgsDockWidget):
@@ -55,6 +58,8 @@ class FavourDock(QgsDockWidget):
         self.project = project or QgsProject.instance()
         self.job: RunJob | None = None
         self.last_layers: list = []
+        self.pairwise: PairwiseDialog | None = None
+        self._quick_again = False
         self.samples = SampleService(self)
         self.checker = ProblemChecker(controller, self.project, self)
         self.actions = DockActions(self, controller.undo_stack)
@@ -92,7 +97,16 @@ class FavourDock(QgsDockWidget):
         splitter.setStretchFactor(0, 1)
         splitter.setStretchFactor(1, 1)
         splitter.setSizes([380, 420])
-        self.pages.addWidget(splitter)
+        # The tree editor and the workshop are tabs, so the workshop never crowds the editor.
+        self.tabs = QTabWidget()
+        self.tabs.setDocumentMode(True)
+        self.tabs.addTab(splitter, icon("node-root"), tr("Tree"))
+        self.workshop = WorkshopView(self.controller, self.iface, self.project, self.next_folder)
+        self.workshop_scroll = QScrollArea()
+        self.workshop_scroll.setWidgetResizable(True)
+        self.workshop_scroll.setWidget(self.workshop)
+        self.tabs.addTab(self.workshop_scroll, icon("workshop"), tr("Workshop"))
+        self.pages.addWidget(self.tabs)
         layout.addWidget(self.pages, 1)
         self.run_bar = RunBar()
         layout.addWidget(self.run_bar)
@@ -114,6 +128,9 @@ class FavourDock(QgsDockWidget):
         a.remove.triggered.connect(self._remove_selected)
         a.up.triggered.connect(lambda: self._move_selected(-1))
         a.down.triggered.connect(lambda: self._move_selected(1))
+        a.pairwise.triggered.connect(lambda: self.open_pairwise())
+        self.workshop.pairwise_requested.connect(lambda: self.open_pairwise())
+        self.workshop.quick_look_requested.connect(self.request_quick_look)
         c.changed.connect(self.refresh)
         c.focus_requested.connect(self.tree_view.select_path)
         self.checker.updated.connect(self._problems_updated)
@@ -137,6 +154,8 @@ class FavourDock(QgsDockWidget):
         """Stop listening and drop pending work (the plugin is unloading)."""
         self.checker.disconnect_all()
         self.samples.forget()
+        self.workshop.shutdown()
+        self._quick_again = False
         if self.job is not None and self.job.running:
             self.job.finished.disconnect(self._run_finished)
             self.job.cancel()
@@ -161,6 +180,7 @@ class FavourDock(QgsDockWidget):
                        self.actions.add_group, self.actions.add_component, self.actions.add_layer,
                        self.actions.remove, self.actions.up, self.actions.down):
             action.setEnabled(tree is not None)
+        self.workshop.tree_changed()
         self.tree_view.show_tree(tree, self.checker.by_node())
         if tree is not None and not self.tree_view.selected_path():
             self.tree_view.select_path(tree.root.name)
@@ -177,6 +197,8 @@ class FavourDock(QgsDockWidget):
 
     def _show_selected(self) -> None:
         path = self.selected_path()
+        node = self._node_at(path)
+        self.actions.pairwise.setEnabled(node is not None and len(node.children) >= 2)
         self.editor.show_node(self.controller.tree, path, self.checker.by_node().get(path, []))
 
     def _problems_updated(self) -> None:
@@ -191,6 +213,49 @@ class FavourDock(QgsDockWidget):
     def select(self, path: str) -> None:
         """Select the node at ``path``."""
         self.tree_view.select_path(path)
+
+    def _node_at(self, path: str):
+        try:
+            return self.controller.tree.find(path) if path and self.controller.tree is not None else None
+        except (KeyError, ValueError, FavourError):
+            return None
+
+    # -- the workshop -----------------------------------------------------------------------
+
+    def open_pairwise(self, path: str | None = None) -> PairwiseDialog | None:
+        """Open the pairwise-weights dialog for the children of ``path`` (default: the selected node).
+
+        Returns the dialog (window-modal, not blocking), or None with a
+        message when the node has fewer than two children.
+        """
+        path = path or self.selected_path()
+        node = self._node_at(path)
+        if node is None or len(node.children) < 2:
+            notify(self.iface, tr("Select a node with two or more criteria under it to weigh them "
+                                  "pairwise."), Qgis.Warning)
+            return None
+        try:
+            self.pairwise = PairwiseDialog(self.controller, path, self.iface, self)
+        except ValueError as exc:
+            notify(self.iface, str(exc), Qgis.Warning)
+            return None
+        self.pairwise.open()
+        return self.pairwise
+
+    def request_quick_look(self) -> None:
+        """Make a quick look now; if a run is going on, make it once that run ends.
+
+        A quick look still running is cancelled first, so the map follows the
+        latest tree when the workshop changes it faster than a quick look runs.
+        """
+        if self.job is not None and self.job.running:
+            self._quick_again = True
+            if self.job.quick:
+                self.job.cancel()
+            else:
+                self.run_bar.status.setText(tr("A quick look follows when this run ends."))
+            return
+        self.run(quick=True)
 
     # -- files -----------------------------------------------------------------------
 
@@ -427,3 +492,6 @@ class FavourDock(QgsDockWidget):
             notify(self.iface, tr("The run failed: {error}").format(error=outcome.message),
                    Qgis.Critical, 0)
         self.run_finished.emit(outcome)
+        if self._quick_again and self.controller.tree is not None:
+            self._quick_again = False
+            self.run(quick=True)

@@ -2,7 +2,8 @@
 
 Runs in the main thread after a :class:`~.run_job.RunJob` succeeded. Layers
 are styled and annotated by the same :class:`~favour_plugin.processing.base.StyleLoader`
-that styles processing outputs. A quick look replaces the previous one.
+that styles processing outputs. A quick look replaces the previous one. A
+Monte Carlo run from the workshop view adds its rasters as one group.
 """
 
 from __future__ import annotations
@@ -68,6 +69,43 @@ def add_results(outcome, tree_name: str, project: QgsProject | None = None) -> l
             if file.lower().endswith(".tif"):
                 path = os.path.abspath(os.path.join(outcome.node_folder, file))
                 layers.append(_layer(path, names.get(path, os.path.splitext(file)[0]), outcome.folder))
+    for i, layer in enumerate(layers):
+        project.addMapLayer(layer, False)
+        node = run_group.addLayer(layer)
+        node.setItemVisibilityChecked(i == 0)
+        node.setExpanded(False)
+    return layers
+
+
+#: Layer names of the Monte Carlo rasters, by output parameter.
+UNCERTAINTY_NAMES = {
+    "OUTPUT_MEAN": "Mean favourability",
+    "OUTPUT_STD": "Standard deviation",
+    "OUTPUT_P10": "P10",
+    "OUTPUT_P50": "P50 (median)",
+    "OUTPUT_P90": "P90",
+    "OUTPUT_ROBUSTNESS": "Robustness (share of draws in the top area)",
+}
+
+
+def add_uncertainty_results(outcome, tree_name: str,
+                            project: QgsProject | None = None) -> list[QgsRasterLayer]:
+    """Add a Monte Carlo run's rasters to the project as one group; return them (mean first).
+
+    ``outcome`` is an :class:`~.ensemble_job.EnsembleOutcome`; its ``files``
+    map output parameters to rasters. The mean is shown, the others are
+    listed unticked.
+    """
+    project = project or QgsProject.instance()
+    rasters = [(key, outcome.files[key]) for key in UNCERTAINTY_NAMES
+               if outcome.files.get(key) and str(outcome.files[key]).lower().endswith(".tif")]
+    if not rasters:
+        return []
+    layers = [_layer(os.path.abspath(path), tr(UNCERTAINTY_NAMES[key]), outcome.folder)
+              for key, path in rasters]
+    stamp = _dt.datetime.now().strftime("%Y-%m-%d %H:%M:%S")
+    run_group = _group(project).insertGroup(0, tr("Monte Carlo: {name} · {stamp}").format(
+        name=tree_name or tr("model"), stamp=stamp))
     for i, layer in enumerate(layers):
         project.addMapLayer(layer, False)
         node = run_group.addLayer(layer)

@@ -48,7 +48,7 @@ class RunOutcome:
     message: str = ""
 
 
-class _Feedback(QgsProcessingFeedback):
+class ErrorKeepingFeedback(QgsProcessingFeedback):
     """Processing feedback that keeps the errors the algorithm reports, for the message bar."""
 
     def __init__(self) -> None:
@@ -133,7 +133,7 @@ class RunJob(QObject):
         if self.quick:
             parameters["MAX_CELLS"] = QUICK_LOOK_CELLS
         self.context = QgsProcessingContext()
-        self.feedback = _Feedback()
+        self.feedback = ErrorKeepingFeedback()
         self.feedback.progressChanged.connect(self.progress_changed)
         self.task = QgsProcessingAlgRunnerTask(algorithm, parameters, self.context, self.feedback)
         self.task.executed.connect(self._executed)

@@ -24,7 +24,7 @@ from .. import about
 from ..core import lineage as lin
 from ..core.errors import OutputError, ParameterError
 from ..core.pairwise import PairwiseResult, pairwise_weights
-from ..core.sheet_import import read_sheets
+from ..core.sheet_import import declared_round, read_sheets
 from ..core.sheets import default_experts, write_sheet
 from ..core.tree import Tree
 from ..core.workshop import (
@@ -88,8 +88,9 @@ def write_score_sheets(tree: Tree, folder: str, experts: int | Sequence[str] = 4
                        expert_weights: Mapping[str, float] | None = None) -> list[str]:
     """Write one score sheet per expert into ``folder``; round 2 when ``previous_sheets`` are given.
 
-    A round-2 sheet carries the expert's own round-1 scores and the group's
-    median, IQR and count beside each item.
+    A next-round sheet carries the expert's own scores of the previous round
+    (the round the previous sheets declare, plus one) and the group's median,
+    IQR and count beside each item.
 
     Raises
     ------
@@ -106,9 +107,9 @@ def write_score_sheets(tree: Tree, folder: str, experts: int | Sequence[str] = 4
     previous = group = None
     round_number = 1
     if previous_sheets:
-        previous = read_sheets(previous_sheets, tree)
+        round_number = max(declared_round(path) for path in previous_sheets) + 1
+        previous = read_sheets(previous_sheets, tree, round_number=round_number - 1)
         group = aggregate(previous, expert_weights)
-        round_number = previous.round_number + 1
         ids = tuple(previous.experts)
     else:
         ids = default_experts(experts) if isinstance(experts, int) else tuple(experts)
