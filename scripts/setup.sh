@@ -13,7 +13,8 @@ SYSTEM_PYTHON=/usr/bin/python3
 PACKAGES=(qgis qgis-providers python3-qgis python3-gdal gdal-bin
           python3-numpy python3-scipy python3-pandas python3-matplotlib
           python3-statsmodels python3-sklearn python3-jsonschema python3-openpyxl
-          python3-venv python3-pip xvfb xauth zip)
+          python3-dask python3-distributed
+          python3-venv python3-pip xvfb xauth zip chromium)
 
 missing=()
 for pkg in "${PACKAGES[@]}"; do

@@ -46,6 +46,14 @@ def add_compression(parser) -> None:
                              "where GDAL has no ZSTD)")
 
 
+def add_cluster(parser) -> None:
+    """Add ``--cluster`` to a subcommand that can run its blocks on a Dask cluster."""
+    parser.add_argument("--cluster", metavar="local|tcp://HOST:PORT", default=None,
+                        help="run the blocks on a Dask cluster: 'local' starts one on this machine, "
+                             "tcp://HOST:PORT joins a running scheduler (inputs and outputs must be "
+                             "reachable from every worker under the same paths)")
+
+
 def add_common(parser) -> None:
     """Add the options every long-running subcommand takes: threads, verbose, quiet."""
     parser.add_argument("--threads", type=int, default=None, help="worker threads (default 2)")

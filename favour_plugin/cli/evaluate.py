@@ -5,7 +5,7 @@ from __future__ import annotations
 import sys
 
 from ..core.lineage import CAUTION
-from .console import add_common, add_compression
+from .console import add_cluster, add_common, add_compression
 
 
 def add_parsers(sub) -> None:
@@ -16,6 +16,7 @@ def add_parsers(sub) -> None:
     evaluate.add_argument("--nodes", metavar="FOLDER",
                           help="also write one raster per component (and per node marked save_output)")
     add_compression(evaluate)
+    add_cluster(evaluate)
     add_common(evaluate)
     evaluate.set_defaults(run=run_evaluate)
     reproduce = sub.add_parser(
@@ -30,7 +31,7 @@ def run_evaluate(args, feedback) -> int:
     from ..raster.engine import evaluate_tree_file
 
     result = evaluate_tree_file(args.tree, args.output, args.nodes, feedback, args.threads,
-                                compress=args.compress)
+                                compress=args.compress, cluster=args.cluster)
     print(f"favourability: {result.output}")
     for node, path in result.node_outputs.items():
         print(f"node raster:   {path}  ({node})")

@@ -8,6 +8,7 @@ from qgis.core import (
     QgsProcessingParameterFolderDestination,
     QgsProcessingParameterNumber,
     QgsProcessingParameterRasterDestination,
+    QgsProcessingParameterString,
 )
 
 from ..raster.engine import evaluate_tree_file
@@ -21,6 +22,7 @@ class EvaluateTreeAlgorithm(FavourAlgorithm):
     OUTPUT = "OUTPUT"
     NODE_FOLDER = "NODE_FOLDER"
     MAX_CELLS = "MAX_CELLS"
+    CLUSTER = "CLUSTER"
     LINEAGE = "LINEAGE"
 
     NAME = "evaluatetree"
@@ -32,7 +34,8 @@ class EvaluateTreeAlgorithm(FavourAlgorithm):
             "the grid, resampling, parameters and per-node statistics. Optionally writes one "
             "raster per component (source, pathway, trap, preservation) into a folder. "
             "MAX_CELLS above 0 makes a quick look: the grid's cells are enlarged by a whole "
-            "factor until the grid has at most that many cells.")
+            "factor until the grid has at most that many cells. CLUSTER runs the blocks on a Dask "
+            "cluster ('local', or a scheduler's tcp://HOST:PORT); the cells are the same.")
 
     def initAlgorithm(self, config=None):  # noqa: N802 (QGIS API name)
         """Declare the parameters and outputs."""
@@ -49,6 +52,11 @@ class EvaluateTreeAlgorithm(FavourAlgorithm):
         cells.setFlags(cells.flags() | QgsProcessingParameterNumber.FlagAdvanced)
         self.addParameter(cells)
         self.add_compression()
+        cluster = QgsProcessingParameterString(
+            self.CLUSTER, self.tr("Run on a Dask cluster: 'local' or tcp://HOST:PORT (empty: this "
+                                  "machine's threads)"), defaultValue="", optional=True)
+        cluster.setFlags(cluster.flags() | QgsProcessingParameterString.FlagAdvanced)
+        self.addParameter(cluster)
         self.addOutput(QgsProcessingOutputFile(self.LINEAGE, self.tr("Lineage record")))
 
     def processAlgorithm(self, parameters, context, feedback):  # noqa: N802 (QGIS API name)
@@ -58,9 +66,10 @@ class EvaluateTreeAlgorithm(FavourAlgorithm):
         node_folder = self.parameterAsString(parameters, self.NODE_FOLDER, context) or None
         note_temporary(feedback, output, node_folder)
         max_cells = self.parameterAsInt(parameters, self.MAX_CELLS, context) or None
+        cluster = self.parameterAsString(parameters, self.CLUSTER, context).strip() or None
         result = run_guarded(evaluate_tree_file, tree_file, output, node_folder,
                              ProcessingFeedback(feedback), max_cells=max_cells,
-                             compress=self.compression_from(parameters, context))
+                             compress=self.compression_from(parameters, context), cluster=cluster)
         style_on_load(context, result.output)
         return {self.OUTPUT: result.output, self.LINEAGE: result.lineage_file,
                 self.NODE_FOLDER: node_folder}

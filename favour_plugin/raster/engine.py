@@ -36,6 +36,7 @@ from ..core.errors import (
 from ..core.feedback import Feedback, ScaledFeedback
 from ..core.tree import PATH_SEPARATOR, EvaluationPlan, Tree
 from .blocks import BLOCK_COLS, BLOCK_ROWS, count_windows, iter_windows
+from .cluster import Cluster, connect, evaluate_on_cluster
 from .gdalenv import gdal_job, set_stream_cache
 from .grid import Grid
 from .outputs import OutputJob, check_apart, stage_lineage
@@ -43,7 +44,7 @@ from .sources import BlockReader, SourceSpec, cache_need, open_raster, raster_so
 from .streaming import DEFAULT_THREADS, map_windows
 from .style import membership_style, style_path
 from .vector import vector_source
-from .writer import RasterWriter, check_raster_name, compression_options, compression_record
+from .writer import RasterWriter, annotate_file, check_raster_name, compression_options
 
 
 @dataclass
@@ -147,7 +148,7 @@ def evaluate_tree(tree: Tree, output: str, node_folder: str | None = None,
                   feedback: Feedback | None = None, grid: Grid | None = None,
                   threads: int | None = None, job: str = "evaluate-tree",
                   tree_file: str | None = None, max_cells: int | None = None,
-                  compress: str | None = None) -> EvaluationResult:
+                  compress: str | None = None, cluster: str | Cluster | None = None) -> EvaluationResult:
     """Evaluate a criteria tree onto its grid and write the favourability raster with lineage.
 
     Parameters
@@ -174,6 +175,11 @@ def evaluate_tree(tree: Tree, output: str, node_folder: str | None = None,
     compress : str, optional
         Compression of the rasters written (:func:`~.writer.compression_options`;
         None: the fast default); recorded in the lineage.
+    cluster : str or Cluster, optional
+        Run the blocks on a Dask cluster instead of this machine's threads:
+        ``"local"`` (a LocalCluster here), a scheduler address
+        (``tcp://HOST:PORT``) or a connected :class:`~.cluster.Cluster`. The
+        cells are the same; the lineage says where they were computed.
 
     Returns
     -------
@@ -197,10 +203,15 @@ def evaluate_tree(tree: Tree, output: str, node_folder: str | None = None,
     node_outputs = _node_outputs(plan, node_folder)
     with gdal_job():
         check_apart(_planned_outputs(output, node_outputs), job_inputs(tree, plan, tree_file, grid))
-    with OutputJob([output, *node_outputs.values()], [node_folder] if node_folder else []) as run:
-        with gdal_job():
-            return _evaluate(tree, plan, output, node_outputs, feedback, grid, threads, job,
-                             tree_file, run.workdir, run.outputs, max_cells, compress)
+    connection = connect(cluster) if isinstance(cluster, str) else cluster
+    try:
+        with OutputJob([output, *node_outputs.values()], [node_folder] if node_folder else []) as run:
+            with gdal_job():
+                return _evaluate(tree, plan, output, node_outputs, feedback, grid, threads, job,
+                                 tree_file, run.workdir, run.outputs, max_cells, compress, connection)
+    finally:
+        if isinstance(cluster, str) and connection is not None:
+            connection.close()
 
 
 def _node_outputs(plan: EvaluationPlan, node_folder: str | None) -> dict[str, str]:
@@ -366,17 +377,23 @@ def base_record(job: str, created: str, tree: Tree, plan: EvaluationPlan, prepar
 
 
 def _evaluate(tree, plan, output, node_outputs, feedback, grid, threads, job, tree_file,
-              workdir, outputs, max_cells, compress=None) -> EvaluationResult:
+              workdir, outputs, max_cells, compress=None, cluster=None) -> EvaluationResult:
     """Body of :func:`evaluate_tree`, run inside the GDAL job settings."""
     created = lin.utc_now()
     prepared = prepare_inputs(tree, plan, grid, workdir, feedback, tree_file, max_cells)
     grid = prepared.grid
-    writers = {plan.root_path: RasterWriter(output, grid, plan.root_path, outputs=outputs,
-                                            compress=compress)}
-    for path, file in node_outputs.items():
-        writers[path] = RasterWriter(file, grid, path, outputs=outputs, compress=compress)
-
-    stats = _stream(plan, prepared.sources, grid, writers, feedback, threads, (0.15, 0.97))
+    finals = {plan.root_path: output, **node_outputs}
+    if cluster is None:
+        writers = {path: RasterWriter(final, grid, path, outputs=outputs, compress=compress)
+                   for path, final in finals.items()}
+        stats = _stream(plan, prepared.sources, grid, writers, feedback, threads, (0.15, 0.97))
+    else:
+        targets = {}
+        for path, final in finals.items():
+            targets[path] = outputs.reserve(final, ".tif")
+            outputs.remove_on_commit(final + ".aux.xml")
+        stats = evaluate_on_cluster(cluster, plan, prepared.sources, grid, targets, workdir, feedback,
+                                    (0.15, 0.97), compress)
     root_stats = stats[plan.root_path]
     if root_stats["valid_cells"] == 0:
         feedback.warning("the favourability has no valid cell: every cell is nodata in some "
@@ -386,20 +403,26 @@ def _evaluate(tree, plan, output, node_outputs, feedback, grid, threads, job, tr
         if stats[leaf.path]["valid_cells"] == 0:
             feedback.warning(f"{leaf.path}: the proxy has no valid cell on the grid", NodataWarning)
 
+    method, options = compression_options(compress)
     record = {
         **base_record(job, created, tree, plan, prepared, tree_file, threads),
         "statistics": stats,
-        "compression": compression_record(writers[plan.root_path]),
+        "compression": {"method": method, "options": options},
+        "ran_on": cluster.description if cluster is not None else
+        {"kind": "this machine", "threads": threads},
         "outputs": {"favourability": output, "nodes": dict(node_outputs)},
         "lineage_file": os.path.basename(str(lin.lineage_path(output))),
         "warnings": list(feedback.warnings),
     }
-    for path, writer in writers.items():
-        writer.set_metadata(lin.summary_metadata(record, path), stats[path])
     feedback.check_cancelled()
-    for writer in writers.values():
-        writer.finish()
-        outputs.add_text(style_path(writer.path), membership_style())
+    for path, final in finals.items():
+        items = lin.summary_metadata(record, path)
+        if cluster is None:
+            writers[path].set_metadata(items, stats[path])
+            writers[path].finish()
+        else:
+            annotate_file(targets[path], path, items, stats[path])
+        outputs.add_text(style_path(final), membership_style())
     lineage_file = stage_lineage(outputs, record, output)
     feedback.check_cancelled()
     outputs.commit()
@@ -434,11 +457,12 @@ def _stream(plan: EvaluationPlan, sources: dict[str, SourceSpec], grid: Grid,
 
 def evaluate_tree_file(tree_file: str, output: str, node_folder: str | None = None,
                        feedback: Feedback | None = None, threads: int | None = None,
-                       max_cells: int | None = None, compress: str | None = None) -> EvaluationResult:
+                       max_cells: int | None = None, compress: str | None = None,
+                       cluster: str | None = None) -> EvaluationResult:
     """Load a tree file and evaluate it (see :func:`evaluate_tree`)."""
     tree = Tree.load(tree_file)
     return evaluate_tree(tree, output, node_folder, feedback, threads=threads, tree_file=tree_file,
-                         max_cells=max_cells, compress=compress)
+                         max_cells=max_cells, compress=compress, cluster=cluster)
 
 
 #: Jobs whose output is one tree evaluated on a grid, which :func:`reproduce` can run again.

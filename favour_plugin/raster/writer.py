@@ -122,6 +122,40 @@ def _space(path: str) -> str:
     return f"the disk holding {folder} has {free / 2**20:.1f} MiB free"
 
 
+def _annotate(ds, band, items: dict[str, str], statistics: dict | None) -> None:
+    """Store metadata items on a dataset and, when there are valid cells, statistics on its band."""
+    for key, value in items.items():
+        ds.SetMetadataItem(key, value)
+    if statistics and statistics.get("valid_cells"):
+        band.SetStatistics(statistics["min"], statistics["max"], statistics["mean"], statistics["std"])
+
+
+def annotate_file(path: str, description: str, items: dict[str, str], statistics: dict | None) -> None:
+    """Give a finished (temporary) raster file its band description, metadata and statistics.
+
+    For rasters assembled outside :class:`RasterWriter` (tiles from a
+    cluster); the file is closed with its errors checked.
+
+    Raises
+    ------
+    OutputError
+        The file cannot be opened for update or closed cleanly.
+    """
+    try:
+        holder = [gdal.Open(path, gdal.GA_Update)]
+        band = holder[0].GetRasterBand(1)
+        if description:
+            band.SetDescription(description)
+        _annotate(holder[0], band, items, statistics)
+        band = None
+        holder[0].FlushCache()
+    except RuntimeError as exc:
+        raise OutputError(f"cannot finish {path}: {exc}") from None
+    error = _close_dataset(holder)
+    if error:
+        raise OutputError(f"cannot finish {path}: {error}; {_space(path)}")
+
+
 def compression_record(writer: RasterWriter) -> dict:
     """Return what the lineage says of a writer's compression: the method and the creation options."""
     return {"method": writer.compression, "options": list(writer.options)}
@@ -193,11 +227,7 @@ class RasterWriter:
 
     def set_metadata(self, items: dict[str, str], statistics: dict | None = None) -> None:
         """Store metadata items on the dataset and band statistics on the band."""
-        for key, value in items.items():
-            self._ds.SetMetadataItem(key, value)
-        if statistics and statistics.get("valid_cells"):
-            self._band.SetStatistics(statistics["min"], statistics["max"], statistics["mean"],
-                                     statistics["std"])
+        _annotate(self._ds, self._band, items, statistics)
 
     def finish(self) -> str:
         """Flush and close the temporary file, checking that every byte reached the disk.

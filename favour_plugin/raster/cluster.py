@@ -1,0 +1,228 @@
+"""The same evaluation plan, block by block, on a Dask cluster instead of this machine's threads.
+
+A tree evaluated on a cluster runs exactly what :func:`~.engine.evaluate_tree`
+runs: the same :class:`~favour_plugin.core.tree.EvaluationPlan`, the same
+windows (:func:`~.blocks.iter_windows`), the same reads. Only who runs each
+block changes. The grid is cut into bands of whole rows of windows; each
+band is one Dask task, which reads its windows, evaluates them and writes
+one tile file per output (ZSTD level 1) into the job's work folder, and
+returns the band's statistics. The client then builds a VRT of the tiles of
+each output and translates it once into the output's temporary file, so the
+cells the workers computed reach the final raster unchanged.
+
+Inputs and the work folder must be reachable from every worker under the
+same paths: on one machine (``local``, a ``LocalCluster``) that is always so;
+on a cluster, keep the layers and the outputs on storage every worker mounts
+at the same place, or give the layers as GDAL virtual file system paths
+(``/vsicurl/https://…``) every worker can open. Workers must be able to
+import ``favour_plugin`` (the same checkout or installed plugin on each).
+
+Dask and distributed come from Debian (``python3-dask``,
+``python3-distributed``); nothing here schedules work by itself.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+from osgeo import gdal
+
+from ..core import lineage as lin
+from ..core.errors import CancelledError, OutputError, ParameterError
+from ..core.feedback import Feedback
+from ..core.tree import EvaluationPlan
+from .blocks import BLOCK_ROWS, iter_windows
+from .gdalenv import gdal_job
+from .grid import Grid
+from .sources import BlockReader, SourceSpec
+from .writer import NODATA, compression_options
+
+#: Bands (rows of windows) per task: enough work per task to hide the scheduling.
+BANDS_PER_TASK = 1
+_TILE_OPTIONS = ["TILED=YES", "BLOCKXSIZE=256", "BLOCKYSIZE=256", "COMPRESS=ZSTD", "ZSTD_LEVEL=1",
+                 "PREDICTOR=3", "BIGTIFF=IF_SAFER"]
+
+
+@dataclass
+class Cluster:
+    """A connection to a Dask cluster, and what to say about it in the lineage."""
+
+    client: object
+    description: dict
+    owned: object | None = None
+
+    def close(self) -> None:
+        """Close the client and, for a cluster this process started, the cluster."""
+        try:
+            self.client.close()
+        finally:
+            if self.owned is not None:
+                self.owned.close()
+
+
+def connect(address: str, workers: int | None = None) -> Cluster:
+    """Connect to ``address``: ``local`` starts a LocalCluster here; ``tcp://HOST:PORT`` a scheduler.
+
+    Raises
+    ------
+    ParameterError
+        Dask's distributed scheduler is not installed, or the address is
+        neither ``local`` nor a scheduler that answers.
+    """
+    try:
+        from distributed import Client, LocalCluster
+    except ImportError:
+        raise ParameterError("running on a cluster needs Dask's distributed scheduler (Debian package "
+                             "python3-distributed)") from None
+    if address == "local":
+        workers = workers or max(1, os.cpu_count() or 1)
+        # Worker processes are started with this interpreter; inside the QGIS desktop that would
+        # start QGIS itself, so there the workers are threads of this process.
+        processes = os.path.basename(sys.executable).startswith("python")
+        cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=processes,
+                               dashboard_address=None)
+        client = Client(cluster)
+        return Cluster(client, {"address": "local", "kind": "Dask LocalCluster on this machine",
+                                "workers": workers, "processes": processes}, owned=cluster)
+    if not address.startswith(("tcp://", "tls://")):
+        raise ParameterError(f"a cluster is 'local' or a scheduler address such as tcp://host:8786, got "
+                             f"{address!r}")
+    try:
+        client = Client(address, timeout=20)
+    except OSError as exc:
+        raise ParameterError(f"no Dask scheduler answers at {address}: {exc}") from None
+    workers = len(client.scheduler_info().get("workers", {}))
+    if workers == 0:
+        client.close()
+        raise ParameterError(f"the Dask scheduler at {address} has no workers")
+    return Cluster(client, {"address": address, "kind": "Dask scheduler", "workers": workers})
+
+
+def _bands(grid: Grid) -> list[tuple[int, int]]:
+    """Return (first row, rows) of each task's band: whole rows of windows."""
+    rows = BLOCK_ROWS * BANDS_PER_TASK
+    return [(row, min(rows, grid.height - row)) for row in range(0, grid.height, rows)]
+
+
+def evaluate_band(plan: EvaluationPlan, sources: dict[str, SourceSpec], grid: Grid, keep: Sequence[str],
+                  histograms: Sequence[str], row: int, rows: int, tiles: dict[str, str]) -> dict:
+    """Evaluate the windows of one band (a task on a worker); write its tiles; return its statistics.
+
+    The windows are the ones :func:`~.blocks.iter_windows` gives the grid
+    (those of the band's rows), read and evaluated exactly as the engine's
+    threads do.
+    """
+    from .engine import read_leaves
+
+    band_grid = Grid(grid.crs_wkt, grid.xmin, grid.ymax - row * grid.cell_y, grid.cell_x, grid.cell_y,
+                     grid.width, rows)
+    totals = {path: lin.NodeStatistics(histogram=path in histograms) for path in keep}
+    with gdal_job():
+        outputs = {}
+        try:
+            for path, tile in tiles.items():
+                ds = gdal.GetDriverByName("GTiff").Create(tile, grid.width, rows, 1, gdal.GDT_Float32,
+                                                          _TILE_OPTIONS)
+                ds.SetGeoTransform(band_grid.transform)
+                ds.SetProjection(grid.crs_wkt)
+                ds.GetRasterBand(1).SetNoDataValue(NODATA)
+                outputs[path] = ds
+            reader = BlockReader()
+            try:
+                for window in iter_windows(grid.width, grid.height):
+                    if not row <= window.row_off < row + rows:
+                        continue
+                    results = plan.evaluate_block(read_leaves(plan, sources, reader, window), keep)
+                    for path, array in results.items():
+                        totals[path].merge(lin.NodeStatistics.of_block(array, histogram=path in histograms))
+                    for path, ds in outputs.items():
+                        block = np.where(np.isnan(results[path]), NODATA, results[path]).astype(np.float32)
+                        ds.GetRasterBand(1).WriteArray(block, window.col_off, window.row_off - row)
+            finally:
+                reader.close()
+        finally:
+            for path in list(outputs):
+                ds = outputs.pop(path)
+                ds.FlushCache()
+                ds = None
+    return {path: _stats_parts(s) for path, s in totals.items()}
+
+
+def _stats_parts(stats: lin.NodeStatistics) -> dict:
+    """Plain data of running statistics, to send back from a worker and merge."""
+    return {"valid": stats.valid, "nodata": stats.nodata, "total": stats.total, "total_sq": stats.total_sq,
+            "minimum": stats.minimum, "maximum": stats.maximum,
+            "histogram": None if stats.histogram is None else stats.histogram.tolist()}
+
+
+def _merge_parts(totals: dict[str, lin.NodeStatistics], parts: dict) -> None:
+    for path, part in parts.items():
+        stats = lin.NodeStatistics(histogram=part["histogram"] is not None)
+        stats.valid, stats.nodata = part["valid"], part["nodata"]
+        stats.total, stats.total_sq = part["total"], part["total_sq"]
+        stats.minimum, stats.maximum = part["minimum"], part["maximum"]
+        if part["histogram"] is not None:
+            stats.histogram = np.asarray(part["histogram"], dtype=np.int64)
+        totals[path].merge(stats)
+
+
+def evaluate_on_cluster(cluster: Cluster, plan: EvaluationPlan, sources: dict[str, SourceSpec], grid: Grid,
+                        targets: dict[str, str], workdir: str, feedback: Feedback,
+                        span: tuple[float, float], compress: str | None = None) -> dict[str, dict]:
+    """Evaluate every band on the cluster and assemble each output into its temporary file.
+
+    Parameters
+    ----------
+    targets : dict of node path to str
+        The temporary file (reserved by the job's output set) each written
+        node goes to; the root first.
+
+    Returns
+    -------
+    dict
+        Per-node statistics, as the engine's threads give them.
+
+    Raises
+    ------
+    CancelledError
+        The user cancelled: the tasks are cancelled and the tiles left for
+        the job's clean-up.
+    """
+    from distributed import as_completed
+
+    keep = list(targets) + [leaf.path for leaf in plan.leaves if leaf.path not in targets]
+    bands = _bands(grid)
+    tiles = {path: [os.path.join(workdir, f"tile-{i}-{k:06d}.tif") for k in range(len(bands))]
+             for i, path in enumerate(targets)}
+    client = cluster.client
+    shared = client.scatter([plan, sources, grid], broadcast=True)
+    futures = {client.submit(evaluate_band, shared[0], shared[1], shared[2], keep, list(targets), row, rows,
+                             {path: tiles[path][k] for path in targets}, pure=False): k
+               for k, (row, rows) in enumerate(bands)}
+    totals = {path: lin.NodeStatistics(histogram=path in targets) for path in keep}
+    done = 0
+    try:
+        for future in as_completed(futures):
+            if feedback.is_cancelled():
+                raise CancelledError("cancelled by the user; no output was written")
+            _merge_parts(totals, future.result())
+            done += 1
+            feedback.set_progress(span[0] + (span[1] - span[0]) * 0.85 * done / len(bands))
+    except BaseException:
+        client.cancel(list(futures))
+        raise
+    _, options = compression_options(compress)
+    for i, (path, target) in enumerate(targets.items()):
+        feedback.check_cancelled()
+        vrt = os.path.join(workdir, f"assembled-{i}.vrt")
+        gdal.BuildVRT(vrt, tiles[path])
+        try:
+            gdal.Translate(target, vrt, format="GTiff", creationOptions=options)
+        except RuntimeError as exc:
+            raise OutputError(f"cannot assemble the tiles of {path} into {target}: {exc}") from None
+        feedback.set_progress(span[0] + (span[1] - span[0]) * (0.85 + 0.15 * (i + 1) / len(targets)))
+    return {path: s.to_dict() for path, s in totals.items()}
