@@ -68,3 +68,18 @@ def test_cluster_from_the_command_line(tmp_path):
     np.testing.assert_array_equal(read_raster(tmp_path / "spread.tif"), read_raster(tmp_path / "plain.tif"))
     record = json.loads((tmp_path / "spread.tif.lineage.json").read_text())
     assert record["ran_on"]["address"] == "local"
+
+
+def test_monte_carlo_on_a_cluster_gives_the_cells_of_the_threaded_run(tmp_path, cluster):
+    """Every Monte Carlo raster (pilot included) on a LocalCluster equals the threaded run's."""
+    from favour_plugin.raster.ensemble_jobs import MC_OUTPUTS, monte_carlo
+
+    tree, _, sheets = small_workshop(tmp_path)
+    here = monte_carlo(tree, sheets, {n: str(tmp_path / f"here-{n}.tif") for n in MC_OUTPUTS}, n=6, seed=3,
+                       pilot_cells=2000)
+    there = monte_carlo(tree, sheets, {n: str(tmp_path / f"there-{n}.tif") for n in MC_OUTPUTS}, n=6, seed=3,
+                        pilot_cells=2000, cluster=cluster)
+    for name in MC_OUTPUTS:
+        np.testing.assert_array_equal(read_raster(there.files[name]), read_raster(here.files[name]))
+    assert there.record["top_area"] == here.record["top_area"]
+    assert there.record["ran_on"]["workers"] == 2

@@ -11,7 +11,7 @@ import sys
 from ..core.lineage import CAUTION
 from ..core.uncertainty import MODES
 from ..core.workshop import DEFAULT_THRESHOLD, STATISTICS
-from .console import add_common, add_compression
+from .console import add_cluster, add_common, add_compression
 
 
 def add_parsers(sub) -> None:
@@ -59,6 +59,7 @@ def add_parsers(sub) -> None:
                     help="top area for robustness, in %% of the area (default 10)")
     _sampling_options(mc, with_mode=True)
     add_compression(mc)
+    add_cluster(mc)
     add_common(mc)
     mc.set_defaults(run=run_monte_carlo)
 
@@ -135,7 +136,7 @@ def run_monte_carlo(args, feedback) -> int:
     outputs = {name: os.path.join(args.output, f"favourability-{name}.tif") for name in MC_OUTPUTS}
     result = monte_carlo(_tree(args.tree), args.sheets, outputs, args.realisations, args.seed, args.mode,
                          parse_expert_weights(args.weights), args.statistic, args.top, feedback,
-                         args.threads, tree_file=args.tree, compress=args.compress)
+                         args.threads, tree_file=args.tree, compress=args.compress, cluster=args.cluster)
     for name, path in result.files.items():
         print(f"{name + ':':12s} {path}")
     print(f"lineage:     {result.lineage_file}")

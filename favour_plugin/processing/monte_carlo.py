@@ -23,6 +23,7 @@ class MonteCarloAlgorithm(WorkshopAlgorithm):
     SEED = "SEED"
     MODE = "MODE"
     TOP_PERCENT = "TOP_PERCENT"
+    CLUSTER = "CLUSTER"
     OUTPUT_MEAN = "OUTPUT_MEAN"
     OUTPUT_STD = "OUTPUT_STD"
     OUTPUT_P10 = "OUTPUT_P10"
@@ -62,6 +63,11 @@ class MonteCarloAlgorithm(WorkshopAlgorithm):
         for key, name in self._outputs():
             self.addParameter(QgsProcessingParameterRasterDestination(key, self.tr(MC_OUTPUTS[name])))
         self.add_compression()
+        cluster = QgsProcessingParameterString(
+            self.CLUSTER, self.tr("Run on a Dask cluster: 'local' or tcp://HOST:PORT (empty: this "
+                                  "machine's threads)"), defaultValue="", optional=True)
+        cluster.setFlags(cluster.flags() | QgsProcessingParameterString.FlagAdvanced)
+        self.addParameter(cluster)
         self.addOutput(QgsProcessingOutputFile(self.LINEAGE, self.tr("Lineage record")))
 
     def _outputs(self):
@@ -81,9 +87,10 @@ class MonteCarloAlgorithm(WorkshopAlgorithm):
         outputs = {name: self.parameterAsOutputLayer(parameters, key, context)
                    for key, name in self._outputs()}
         note_temporary(feedback, *outputs.values())
+        cluster = self.parameterAsString(parameters, self.CLUSTER, context).strip() or None
         result = run_guarded(monte_carlo, tree, sheets, outputs, n, seed, mode, weights, statistic, top,
                              ProcessingFeedback(feedback), tree_file=tree_file,
-                             compress=self.compression_from(parameters, context))
+                             compress=self.compression_from(parameters, context), cluster=cluster)
         for path in result.files.values():
             style_on_load(context, path)
         found = {key: result.files[name] for key, name in self._outputs()}

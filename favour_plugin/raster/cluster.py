@@ -23,6 +23,7 @@ Dask and distributed come from Debian (``python3-dask``,
 
 from __future__ import annotations
 
+import functools
 import os
 import sys
 from collections.abc import Sequence
@@ -108,48 +109,144 @@ def _bands(grid: Grid) -> list[tuple[int, int]]:
     return [(row, min(rows, grid.height - row)) for row in range(0, grid.height, rows)]
 
 
-def evaluate_band(plan: EvaluationPlan, sources: dict[str, SourceSpec], grid: Grid, keep: Sequence[str],
-                  histograms: Sequence[str], row: int, rows: int, tiles: dict[str, str]) -> dict:
-    """Evaluate the windows of one band (a task on a worker); write its tiles; return its statistics.
+def band_task(compute, grid: Grid, row: int, rows: int, tiles: dict[str, str]) -> list:
+    """Run ``compute(window, reader)`` on the windows of one band (a task on a worker).
 
-    The windows are the ones :func:`~.blocks.iter_windows` gives the grid
-    (those of the band's rows), read and evaluated exactly as the engine's
-    threads do.
+    ``compute`` returns ``(arrays, extra)``: the float arrays of the window by
+    output name, written into that output's tile, and anything small to send
+    back. The windows are the ones :func:`~.blocks.iter_windows` gives the
+    grid, in its order, so a band computes exactly what the engine's threads
+    would. Returns the ``extra`` of each window, in order.
     """
-    from .engine import read_leaves
-
     band_grid = Grid(grid.crs_wkt, grid.xmin, grid.ymax - row * grid.cell_y, grid.cell_x, grid.cell_y,
                      grid.width, rows)
-    totals = {path: lin.NodeStatistics(histogram=path in histograms) for path in keep}
+    extras = []
     with gdal_job():
         outputs = {}
         try:
-            for path, tile in tiles.items():
+            for name, tile in tiles.items():
                 ds = gdal.GetDriverByName("GTiff").Create(tile, grid.width, rows, 1, gdal.GDT_Float32,
                                                           _TILE_OPTIONS)
                 ds.SetGeoTransform(band_grid.transform)
                 ds.SetProjection(grid.crs_wkt)
                 ds.GetRasterBand(1).SetNoDataValue(NODATA)
-                outputs[path] = ds
+                outputs[name] = ds
             reader = BlockReader()
             try:
                 for window in iter_windows(grid.width, grid.height):
                     if not row <= window.row_off < row + rows:
                         continue
-                    results = plan.evaluate_block(read_leaves(plan, sources, reader, window), keep)
-                    for path, array in results.items():
-                        totals[path].merge(lin.NodeStatistics.of_block(array, histogram=path in histograms))
-                    for path, ds in outputs.items():
-                        block = np.where(np.isnan(results[path]), NODATA, results[path]).astype(np.float32)
+                    arrays, extra = compute(window, reader)
+                    extras.append(extra)
+                    for name, ds in outputs.items():
+                        block = np.where(np.isnan(arrays[name]), NODATA, arrays[name]).astype(np.float32)
                         ds.GetRasterBand(1).WriteArray(block, window.col_off, window.row_off - row)
             finally:
                 reader.close()
         finally:
-            for path in list(outputs):
-                ds = outputs.pop(path)
+            for name in list(outputs):
+                ds = outputs.pop(name)
                 ds.FlushCache()
                 ds = None
-    return {path: _stats_parts(s) for path, s in totals.items()}
+    return extras
+
+
+def item_task(compute, items: list, combine=None) -> list:
+    """Run ``compute(item, reader)`` on each item (a task on a worker); return the results in order.
+
+    With ``combine`` (a function of two results) the task returns one
+    combined result in a list, so large results (histograms) travel once.
+    """
+    with gdal_job():
+        reader = BlockReader()
+        try:
+            results = [compute(item, reader) for item in items]
+        finally:
+            reader.close()
+    if combine is not None and results:
+        return [functools.reduce(combine, results)]
+    return results
+
+
+def _gather(cluster: Cluster, futures: list, feedback: Feedback, span: tuple[float, float]) -> list:
+    """Wait for the futures with progress and cancel; return their results in submission order."""
+    from distributed import as_completed
+
+    order = {future: k for k, future in enumerate(futures)}
+    results: list = [None] * len(futures)
+    done = 0
+    try:
+        for future in as_completed(futures):
+            if feedback.is_cancelled():
+                raise CancelledError("cancelled by the user; no output was written")
+            results[order[future]] = future.result()
+            done += 1
+            feedback.set_progress(span[0] + (span[1] - span[0]) * done / len(futures))
+    except BaseException:
+        cluster.client.cancel(futures)
+        raise
+    return results
+
+
+def run_bands(cluster: Cluster, compute, grid: Grid, names: Sequence[str], workdir: str,
+              feedback: Feedback, span: tuple[float, float]) -> tuple[dict[str, list[str]], list]:
+    """Run ``compute`` over every window, one band per task; return each output's tiles and the extras.
+
+    ``compute`` is sent to the workers once; the tiles are written into
+    ``workdir`` (which every worker must reach under the same path).
+    """
+    bands = _bands(grid)
+    tiles = {name: [os.path.join(workdir, f"tile-{i}-{k:06d}.tif") for k in range(len(bands))]
+             for i, name in enumerate(names)}
+    client = cluster.client
+    [shared] = client.scatter([compute], broadcast=True)
+    futures = [client.submit(band_task, shared, grid, row, rows, {name: tiles[name][k] for name in names},
+                             pure=False) for k, (row, rows) in enumerate(bands)]
+    extras = [extra for band in _gather(cluster, futures, feedback, span) for extra in band]
+    return tiles, extras
+
+
+def run_items(cluster: Cluster, compute, items: Sequence, feedback: Feedback,
+              span: tuple[float, float], combine=None) -> list:
+    """Run ``compute(item, reader)`` on every item, a share of them per worker; results in order.
+
+    With ``combine``, each task combines its share and one result per task comes back.
+    """
+    client = cluster.client
+    workers = max(1, len(client.scheduler_info().get("workers", {})))
+    size = -(-len(items) // (2 * workers))
+    groups = [list(items[k:k + size]) for k in range(0, len(items), size)]
+    [shared] = client.scatter([compute], broadcast=True)
+    futures = [client.submit(item_task, shared, group, combine, pure=False) for group in groups]
+    return [result for group in _gather(cluster, futures, feedback, span) for result in group]
+
+
+def assemble(tiles: list[str], target: str, workdir: str, compress: str | None) -> None:
+    """Build a VRT of an output's tiles and translate it once into ``target``.
+
+    Raises
+    ------
+    OutputError
+        GDAL cannot write ``target`` (a full disk, say).
+    """
+    _, options = compression_options(compress)
+    vrt = os.path.join(workdir, os.path.basename(tiles[0]) + ".vrt")
+    gdal.BuildVRT(vrt, tiles)
+    try:
+        gdal.Translate(target, vrt, format="GTiff", creationOptions=options)
+    except RuntimeError as exc:
+        raise OutputError(f"cannot assemble the tiles into {target}: {exc}") from None
+
+
+def _evaluate_window(plan: EvaluationPlan, sources: dict[str, SourceSpec], keep: Sequence[str],
+                     written: Sequence[str], window, reader) -> tuple[dict, dict]:
+    """One window as the engine evaluates it: the written nodes' arrays and every kept node's statistics."""
+    from .engine import read_leaves
+
+    results = plan.evaluate_block(read_leaves(plan, sources, reader, window), keep)
+    stats = {path: _stats_parts(lin.NodeStatistics.of_block(array, histogram=path in written))
+             for path, array in results.items()}
+    return {path: results[path] for path in written}, stats
 
 
 def _stats_parts(stats: lin.NodeStatistics) -> dict:
@@ -160,6 +257,7 @@ def _stats_parts(stats: lin.NodeStatistics) -> dict:
 
 
 def _merge_parts(totals: dict[str, lin.NodeStatistics], parts: dict) -> None:
+    """Add a window's statistics (:func:`_stats_parts`) to the running totals."""
     for path, part in parts.items():
         stats = lin.NodeStatistics(histogram=part["histogram"] is not None)
         stats.valid, stats.nodata = part["valid"], part["nodata"]
@@ -192,37 +290,16 @@ def evaluate_on_cluster(cluster: Cluster, plan: EvaluationPlan, sources: dict[st
         The user cancelled: the tasks are cancelled and the tiles left for
         the job's clean-up.
     """
-    from distributed import as_completed
-
     keep = list(targets) + [leaf.path for leaf in plan.leaves if leaf.path not in targets]
-    bands = _bands(grid)
-    tiles = {path: [os.path.join(workdir, f"tile-{i}-{k:06d}.tif") for k in range(len(bands))]
-             for i, path in enumerate(targets)}
-    client = cluster.client
-    shared = client.scatter([plan, sources, grid], broadcast=True)
-    futures = {client.submit(evaluate_band, shared[0], shared[1], shared[2], keep, list(targets), row, rows,
-                             {path: tiles[path][k] for path in targets}, pure=False): k
-               for k, (row, rows) in enumerate(bands)}
+    compute = functools.partial(_evaluate_window, plan, sources, keep, list(targets))
+    low, high = span
+    tiles, extras = run_bands(cluster, compute, grid, list(targets), workdir, feedback,
+                              (low, low + 0.85 * (high - low)))
     totals = {path: lin.NodeStatistics(histogram=path in targets) for path in keep}
-    done = 0
-    try:
-        for future in as_completed(futures):
-            if feedback.is_cancelled():
-                raise CancelledError("cancelled by the user; no output was written")
-            _merge_parts(totals, future.result())
-            done += 1
-            feedback.set_progress(span[0] + (span[1] - span[0]) * 0.85 * done / len(bands))
-    except BaseException:
-        client.cancel(list(futures))
-        raise
-    _, options = compression_options(compress)
+    for parts in extras:
+        _merge_parts(totals, parts)
     for i, (path, target) in enumerate(targets.items()):
         feedback.check_cancelled()
-        vrt = os.path.join(workdir, f"assembled-{i}.vrt")
-        gdal.BuildVRT(vrt, tiles[path])
-        try:
-            gdal.Translate(target, vrt, format="GTiff", creationOptions=options)
-        except RuntimeError as exc:
-            raise OutputError(f"cannot assemble the tiles of {path} into {target}: {exc}") from None
-        feedback.set_progress(span[0] + (span[1] - span[0]) * (0.85 + 0.15 * (i + 1) / len(targets)))
+        assemble(tiles[path], target, workdir, compress)
+        feedback.set_progress(low + (high - low) * (0.85 + 0.15 * (i + 1) / len(targets)))
     return {path: s.to_dict() for path, s in totals.items()}

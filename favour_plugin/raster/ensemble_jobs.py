@@ -21,6 +21,7 @@ lineage records both.
 
 from __future__ import annotations
 
+import functools
 import math
 import os
 import threading
@@ -39,6 +40,7 @@ from ..core.tree import BlockCache, EvaluationPlan, Tree
 from ..core.uncertainty import MODES, sample_values, sensitivity_variants
 from ..core.workshop import STATISTICS, check_expert_weights
 from .blocks import Window, iter_windows
+from .cluster import assemble, connect, run_bands, run_items
 from .engine import PreparedInputs, base_record, job_inputs, prepare_inputs, read_leaves
 from .evidence import DepositCells, deposit_cells
 from .gdalenv import gdal_job
@@ -46,7 +48,7 @@ from .grid import Grid
 from .outputs import OutputJob, check_apart, stage_lineage
 from .streaming import DEFAULT_THREADS, map_windows
 from .style import membership_style, style_path
-from .writer import RasterWriter, check_raster_name, compression_options, compression_record
+from .writer import RasterWriter, annotate_file, check_raster_name, compression_options
 
 #: The rasters a Monte Carlo writes, and what each holds.
 MC_OUTPUTS = {
@@ -130,27 +132,70 @@ def pilot_windows(grid: Grid, pilot_cells: int) -> list[Window]:
             for row in offsets for col in range(0, grid.width, PILOT_COLS)]
 
 
+def pilot_window(plans, base: EvaluationPlan, sources, shared: BlockCache, window, reader,
+                 check=None) -> np.ndarray:
+    """Histogram counts (N × BINS) of every plan's μ on one pilot window."""
+    leaves = read_leaves(base, sources, reader, window)
+    strip = _strip_rows(len(plans), window.width)
+    local = UnitHistograms(len(plans))
+    for start in range(0, window.height, strip):
+        if check is not None:
+            check()
+        local.add(_stack(plans, {k: v[start:start + strip] for k, v in leaves.items()}, shared))
+    return local.counts
+
+
+def _add_counts(first: np.ndarray, second: np.ndarray) -> np.ndarray:
+    return first + second
+
+
 def _pilot(base: EvaluationPlan, plans, prepared: PreparedInputs, feedback: Feedback, threads: int,
-           pilot_cells: int, span: tuple[float, float]) -> tuple[UnitHistograms, int]:
+           pilot_cells: int, span: tuple[float, float], cluster=None) -> tuple[UnitHistograms, int]:
     """Histograms of every plan's μ on the pilot windows; and how many cells they hold."""
     windows = pilot_windows(prepared.grid, pilot_cells)
     histograms = UnitHistograms(len(plans))
     shared = BlockCache.for_plans(plans)
-    lock = threading.Lock()
+    compute = functools.partial(pilot_window, plans, base, prepared.sources, shared)
+    if cluster is not None:
+        for counts in run_items(cluster, compute, windows, feedback, span, combine=_add_counts):
+            histograms.counts += counts
+    else:
+        lock = threading.Lock()
 
-    def work(window, reader):
-        leaves = read_leaves(base, prepared.sources, reader, window)
-        strip = _strip_rows(len(plans), window.width)
-        local = UnitHistograms(len(plans))
-        for start in range(0, window.height, strip):
-            feedback.check_cancelled()
-            local.add(_stack(plans, {k: v[start:start + strip] for k, v in leaves.items()}, shared))
-        with lock:
-            histograms.merge(local)
+        def work(window, reader):
+            counts = compute(window, reader, check=feedback.check_cancelled)
+            with lock:
+                histograms.counts += counts
 
-    for _ in map_windows(work, prepared.grid, feedback, threads, span, items=windows):
-        pass
+        for _ in map_windows(work, prepared.grid, feedback, threads, span, items=windows):
+            pass
     return histograms, sum(w.width * w.height for w in windows)
+
+
+def mc_window(plans, base: EvaluationPlan, sources, shared: BlockCache, thresholds: np.ndarray,
+              names: Sequence[str], window, reader, check=None) -> tuple[dict, tuple]:
+    """Evaluate one window of the Monte Carlo.
+
+    Returns each summary's block, and per realisation the cells at or above
+    its threshold and the valid cells (for the share the thresholds cut off).
+    """
+    n = len(plans)
+    leaves = read_leaves(base, sources, reader, window)
+    strip = _strip_rows(n, window.width)
+    blocks = {name: np.empty(window.shape, dtype=np.float64) for name in names}
+    above = np.zeros(n, dtype=np.int64)
+    valid = np.zeros(n, dtype=np.int64)
+    for start in range(0, window.height, strip):
+        if check is not None:
+            check()
+        stack = _stack(plans, {k: v[start:start + strip] for k, v in leaves.items()}, shared)
+        summary = summarise_stack(stack, thresholds)
+        for name in names:
+            blocks[name][start:start + strip] = summary[name]
+        flat = stack.reshape(n, -1)
+        valid += (~np.isnan(flat)).sum(axis=1)
+        above += (flat >= thresholds[:, None]).sum(axis=1)
+    return blocks, (above, valid)
 
 
 def _prepare(tree: Tree, tree_file: str | None, workdir: str, feedback: Feedback,
@@ -178,7 +223,8 @@ def monte_carlo(tree: Tree, sheets: Sequence[str], outputs: Mapping[str, str], n
                 seed: int = 1, mode: str = "experts", expert_weights: Mapping[str, float] | None = None,
                 statistic: str = "pool", top_percent: float = 10.0, feedback: Feedback | None = None,
                 threads: int | None = None, tree_file: str | None = None,
-                pilot_cells: int = PILOT_CELLS, compress: str | None = None) -> EnsembleResult:
+                pilot_cells: int = PILOT_CELLS, compress: str | None = None,
+                cluster=None) -> EnsembleResult:
     """Evaluate N realisations drawn from the workshop's score sheets in one streamed pass.
 
     Parameters
@@ -201,6 +247,10 @@ def monte_carlo(tree: Tree, sheets: Sequence[str], outputs: Mapping[str, str], n
         Cells the pilot samples for the top-area thresholds.
     compress : str, optional
         Compression of the rasters (:func:`~.writer.compression_options`).
+    cluster : str or Cluster, optional
+        Run the blocks on a Dask cluster (``"local"`` or ``tcp://HOST:PORT``,
+        :mod:`.cluster`): each worker evaluates every realisation of its
+        band; the cells are those of the threaded run.
 
     Returns
     -------
@@ -240,42 +290,58 @@ def monte_carlo(tree: Tree, sheets: Sequence[str], outputs: Mapping[str, str], n
     values = sample_values(tree, scores, n, seed, mode=mode, expert_weights=weights, statistic=statistic)
     plans = [apply_values(tree, v).compile() for v in values]
     feedback.info(f"{n} realisations drawn ({mode}, seed {seed}) from {len(scores.experts)} experts")
+    connection = connect(cluster) if isinstance(cluster, str) else cluster
+    try:
+        return _monte_carlo_run(tree, base, plans, values, scores, weights, sheets, outputs, n, seed, mode,
+                                statistic, top_percent, feedback, threads, tree_file, pilot_cells, compress,
+                                connection)
+    finally:
+        if isinstance(cluster, str) and connection is not None:
+            connection.close()
+
+
+def _monte_carlo_run(tree, base, plans, values, scores, weights, sheets, outputs, n, seed, mode, statistic,
+                     top_percent, feedback, threads, tree_file, pilot_cells, compress,
+                     connection) -> EnsembleResult:
+    """Body of :func:`monte_carlo` once the realisations are drawn: the pilot, the pass, the outputs."""
     with OutputJob(list(outputs.values())) as run, gdal_job():
         created = lin.utc_now()
         _, prepared = _prepare(tree, tree_file, run.workdir, feedback, (0.0, 0.05))
-        histograms, sampled = _pilot(base, plans, prepared, feedback, threads, pilot_cells, (0.05, 0.15))
+        histograms, sampled = _pilot(base, plans, prepared, feedback, threads, pilot_cells, (0.05, 0.15),
+                                     connection)
         thresholds = histograms.top_thresholds(top_percent)
         grid = prepared.grid
-        writers = {name: RasterWriter(path, grid, MC_OUTPUTS[name], outputs=run.outputs, compress=compress)
-                   for name, path in outputs.items()}
+        compute = functools.partial(mc_window, plans, base, prepared.sources, BlockCache.for_plans(plans),
+                                    thresholds, list(outputs))
         above = np.zeros(n, dtype=np.int64)
         valid = np.zeros(n, dtype=np.int64)
-        lock = threading.Lock()
-        shared = BlockCache.for_plans(plans)
+        if connection is None:
+            writers = {name: RasterWriter(path, grid, MC_OUTPUTS[name], outputs=run.outputs,
+                                          compress=compress) for name, path in outputs.items()}
+            lock = threading.Lock()
 
-        def work(window, reader):
-            leaves = read_leaves(base, prepared.sources, reader, window)
-            strip = _strip_rows(n, window.width)
-            blocks = {name: np.empty(window.shape, dtype=np.float64) for name in outputs}
-            local_above = np.zeros(n, dtype=np.int64)
-            local_valid = np.zeros(n, dtype=np.int64)
-            for start in range(0, window.height, strip):
-                feedback.check_cancelled()
-                stack = _stack(plans, {k: v[start:start + strip] for k, v in leaves.items()}, shared)
-                summary = summarise_stack(stack, thresholds)
-                for name in outputs:
-                    blocks[name][start:start + strip] = summary[name]
-                flat = stack.reshape(n, -1)
-                local_valid += (~np.isnan(flat)).sum(axis=1)
-                local_above += (flat >= thresholds[:, None]).sum(axis=1)
-            with lock:
-                above[:] += local_above
-                valid[:] += local_valid
-            return blocks
+            def work(window, reader):
+                blocks, (local_above, local_valid) = compute(window, reader, check=feedback.check_cancelled)
+                with lock:
+                    above[:] += local_above
+                    valid[:] += local_valid
+                return blocks
 
-        for window, blocks in map_windows(work, grid, feedback, threads, (0.15, 0.97)):
-            for name, writer in writers.items():
-                writer.write(window, blocks[name])
+            for window, blocks in map_windows(work, grid, feedback, threads, (0.15, 0.97)):
+                for name, writer in writers.items():
+                    writer.write(window, blocks[name])
+        else:
+            writers = {}
+            tiles, extras = run_bands(connection, compute, grid, list(outputs), run.workdir, feedback,
+                                      (0.15, 0.9))
+            for local_above, local_valid in extras:
+                above += local_above
+                valid += local_valid
+            targets = {}
+            for name, path in outputs.items():
+                targets[name] = run.outputs.reserve(path, ".tif")
+                run.outputs.remove_on_commit(path + ".aux.xml")
+                assemble(tiles[name], targets[name], run.workdir, compress)
         realised = np.where(valid > 0, above / np.maximum(valid, 1), np.nan)
         note = _pilot_note(grid, sampled, thresholds, realised, top_percent)
         feedback.info(f"top {top_percent:g} % thresholds from {note['threshold_source']}; they cut off "
@@ -289,11 +355,23 @@ def monte_carlo(tree: Tree, sheets: Sequence[str], outputs: Mapping[str, str], n
             "sheets": lin.describe_files(sheets),
             "realisations": values,
             "top_area": note,
-            "compression": compression_record(next(iter(writers.values()))),
+            "compression": dict(zip(("method", "options"), compression_options(compress))),
+            "ran_on": connection.description if connection is not None else
+            {"kind": "this machine", "threads": threads},
             "outputs": dict(outputs),
             "warnings": list(feedback.warnings),
         }
         feedback.check_cancelled()
+        if connection is not None:
+            for name, path in outputs.items():
+                items = lin.summary_metadata({**record, "lineage_file": os.path.basename(
+                    str(lin.lineage_path(path)))}, name)
+                annotate_file(targets[name], MC_OUTPUTS[name], items, None)
+                run.outputs.add_text(style_path(path), membership_style(title=name))
+                stage_lineage(run.outputs, record, path)
+            run.outputs.commit()
+            feedback.set_progress(1.0)
+            return EnsembleResult(dict(outputs), str(lin.lineage_path(next(iter(outputs.values())))), record)
         return _commit_rasters(run, writers, record, feedback)
 
 
