@@ -88,6 +88,7 @@ class Measure:
         self.seconds = seconds
         self.peak_mb = peak_mb
         self.inner = inner  # seconds the child measured itself, without start-up
+        self.start = 0.0  # seconds of the inner time spent starting something (a cluster)
 
     def __repr__(self) -> str:
         return f"{self.label}: {self.seconds:.1f} s, {self.peak_mb:.0f} MB"
