@@ -76,3 +76,74 @@ def test_summary_of_nothing_is_empty_not_an_error():
     """No valid value gives an empty histogram over [0, 1]."""
     sample = summarise(np.array([np.nan, np.inf]))
     assert sample.count == 0 and sample.classes is None and (sample.low, sample.high) == (0.0, 1.0)
+
+
+# -- every class of the whole raster (raster/classes.py) -------------------------------------------
+
+
+def _class_raster(tmp_path, dtype, nodata=None, name="classes.tif"):
+    """A 700 x 1300 class raster (several blocks) whose class 42 holds three cells, far apart."""
+    from tests.helpers import write_raster
+
+    rng = np.random.default_rng(8)
+    values = rng.choice([1, 3, 6, 9], size=(700, 1300), p=[0.4, 0.3, 0.2, 0.1]).astype(dtype)
+    values[5, 7] = values[350, 1299] = values[699, 640] = 42
+    if nodata is not None:
+        values[100:140, 200:260] = nodata
+    return write_raster(tmp_path / name, values, nodata=nodata), values
+
+
+@pytest.mark.parametrize("dtype, nodata", [(np.uint8, 0), (np.int16, -99), (np.int32, -9999),
+                                           (np.int32, None)])
+def test_class_counts_are_numpys_unique_over_the_whole_raster(tmp_path, dtype, nodata):
+    """count_classes equals numpy.unique of every valid cell, the rare class a sample misses included."""
+    from favour_plugin.gui.sampling import summarise
+    from favour_plugin.raster.checks import sample_values
+    from favour_plugin.raster.classes import count_classes
+
+    path, values = _class_raster(tmp_path, dtype, nodata)
+    valid = values[values != nodata] if nodata is not None else values.ravel()
+    codes, counts = np.unique(valid, return_counts=True)
+    found = count_classes(path)
+    assert found.as_dict() == dict(zip(codes.astype(float).tolist(), counts.tolist()))
+    assert found.total == valid.size and found.source == "every block"
+    assert 42.0 not in (summarise(sample_values(path, max_cells=20_000)).classes or {})
+
+
+def test_class_counts_come_from_the_attribute_table_when_the_band_has_one(tmp_path):
+    """A band whose attribute table gives values and pixel counts is read from the table, nodata row out."""
+    from osgeo import gdal
+
+    from favour_plugin.raster.classes import count_classes
+
+    path, _ = _class_raster(tmp_path, np.uint8, 0)
+    ds = gdal.Open(path, gdal.GA_Update)
+    rat = gdal.RasterAttributeTable()
+    rat.CreateColumn("value", gdal.GFT_Integer, gdal.GFU_MinMax)
+    rat.CreateColumn("count", gdal.GFT_Integer, gdal.GFU_PixelCount)
+    for row, (code, count) in enumerate([(0, 2400), (1, 10), (5, 20), (7, 0)]):
+        rat.SetValueAsInt(row, 0, code)
+        rat.SetValueAsInt(row, 1, count)
+    ds.GetRasterBand(1).SetDefaultRAT(rat)
+    ds = None
+    found = count_classes(path)
+    assert (found.as_dict(), found.source) == ({1.0: 10, 5.0: 20}, "attribute table")
+
+
+def test_continuous_data_is_refused_with_a_message_not_counted(tmp_path):
+    """A float band, and an integer band of more distinct values than the cap, are named continuous."""
+    from favour_plugin.core.errors import InputError
+    from favour_plugin.raster.classes import count_classes
+    from tests.helpers import write_raster
+
+    floats = write_raster(tmp_path / "f.tif", np.random.default_rng(1).random((50, 60)).astype(np.float32))
+    with pytest.raises(InputError, match=r"holds Float32 values, which are continuous data; a class table "
+                                         r"lists the codes of an integer band"):
+        count_classes(floats)
+    many = write_raster(tmp_path / "m.tif", np.arange(300 * 400, dtype=np.int32).reshape(300, 400))
+    with pytest.raises(InputError, match="more than 1000 distinct values; that is continuous data"):
+        count_classes(many)
+    five, _ = _class_raster(tmp_path, np.int16, name="five.tif")  # 1, 3, 6, 9 and 42
+    with pytest.raises(InputError, match="more than 4 distinct values"):
+        count_classes(five, max_classes=4)
+    assert len(count_classes(five, max_classes=5).codes) == 5

@@ -11,6 +11,7 @@ import jsonschema
 import numpy as np
 import pytest
 
+from favour_plugin.core.errors import TreeFileError
 from favour_plugin.core.schema import SCHEMA_DIR, Validator, load_validator
 from favour_plugin.core.tree import Tree
 from tests.helpers import example_tree_doc
@@ -140,3 +141,87 @@ def test_plan_evaluates_children_before_parents_and_drops_unkept_nodes():
     # Source = OR(categories(3)=0.9, linear(3; 10, 80)=0) = 0.9 in the first cell.
     assert out["Favourability > Source"][0] == pytest.approx(0.9)
     assert np.isnan(out["Favourability"][2])
+
+
+# -- a proxy's filter of features and margin -----------------------------------------------------
+
+FAULTS_PROXY = ("root", "children", 1, "children", 0, "proxy")
+
+
+def _with_proxy(**fields) -> dict:
+    """The example tree with fields set on its distance proxy (a value of ... removes the field)."""
+    doc = example_tree_doc()
+    proxy = doc
+    for key in FAULTS_PROXY:
+        proxy = proxy[key]
+    for key, value in fields.items():
+        if value is ...:
+            proxy.pop(key, None)
+        else:
+            proxy[key] = value
+    return doc
+
+
+PROXY_CASES = {
+    "valid filter of numbers": _with_proxy(where={"field": "order", "values": [1, 2]}),
+    "valid filter of text": _with_proxy(where={"field": "kind", "values": ["major", "it's"]}),
+    "valid margin": _with_proxy(margin=250),
+    "valid margin 0": _with_proxy(margin=0),
+    "filter without values": _with_proxy(where={"field": "order"}),
+    "filter with no value": _with_proxy(where={"field": "order", "values": []}),
+    "filter value true": _with_proxy(where={"field": "order", "values": [True]}),
+    "filter value null": _with_proxy(where={"field": "order", "values": [None]}),
+    "filter value a list": _with_proxy(where={"field": "order", "values": [[1]]}),
+    "filter as SQL text": _with_proxy(where="order IN (1, 2)"),
+    "filter with another key": _with_proxy(where={"field": "order", "values": [1], "sql": "1=1"}),
+    "filter of an empty field name": _with_proxy(where={"field": "", "values": [1]}),
+    "margin negative": _with_proxy(margin=-5),
+    "margin as text": _with_proxy(margin="250"),
+}
+
+
+@pytest.mark.parametrize("label", list(PROXY_CASES))
+def test_proxy_filter_and_margin_agree_with_jsonschema(label):
+    """The schema's verdict on a proxy's where and margin is jsonschema's (Draft 2020-12)."""
+    doc = PROXY_CASES[label]
+    reference = jsonschema.Draft202012Validator(SCHEMA)
+    assert (not load_validator("tree-v1.schema.json").issues(doc)) == reference.is_valid(doc), label
+    assert label.startswith("valid") == reference.is_valid(doc), label
+
+
+@pytest.mark.parametrize("label", [k for k in PROXY_CASES if not k.startswith("valid")])
+def test_a_draft_with_a_bad_filter_or_margin_lists_the_problem_at_its_node(label):
+    """The dock's drafts skip the schema; problems() names the node and the field instead."""
+    tree = Tree.from_draft(copy.deepcopy(PROXY_CASES[label]))
+    found = [p for p in tree.problems() if p.node == "Favourability > Pathway > Near faults"]
+    assert found and all("proxy where" in p.message or "proxy margin" in p.message for p in found), found
+
+
+def test_filter_and_margin_round_trip_as_fields_of_the_proxy():
+    """where and margin are read into the proxy (not its extra fields) and written back unchanged."""
+    doc = _with_proxy(where={"field": "order", "values": [1, 2]}, margin=250, note="kept")
+    tree = Tree.from_dict(copy.deepcopy(doc))
+    proxy = tree.find("Favourability > Pathway > Near faults").proxy
+    assert (proxy.where, proxy.margin, proxy.extra) == ({"field": "order", "values": [1, 2]}, 250,
+                                                        {"note": "kept"})
+    written = tree.find("Favourability > Pathway > Near faults").to_dict()["proxy"]
+    assert written == {"path": "layers/faults.gpkg", "layer": "faults", "measure": "distance",
+                       "where": {"field": "order", "values": [1, 2]}, "margin": 250, "note": "kept"}
+    assert Tree.from_dict(tree.to_dict()).to_dict() == tree.to_dict()
+    # The plan tells leaves with other filters apart: they read other cells.
+    other = Tree.from_dict(_with_proxy(where={"field": "order", "values": [1]}, margin=250, note="kept"))
+    signatures = {leaf.path: leaf.signature for leaf in tree.compile().leaves}
+    assert signatures != {leaf.path: leaf.signature for leaf in other.compile().leaves}
+
+
+def test_a_filter_on_a_raster_or_a_margin_on_an_attribute_is_a_problem():
+    """where applies to vector layers, margin to distances; elsewhere each is named at its node."""
+    doc = _with_proxy(margin=100, measure="attribute", field="throw")
+    doc["root"]["children"][0]["children"][0]["proxy"]["where"] = {"field": "x", "values": [1]}
+    with pytest.raises(TreeFileError) as refused:
+        Tree.from_dict(doc)
+    text = str(refused.value)
+    assert "Favourability > Pathway > Near faults: proxy margin (features outside the grid " \
+           "that count) applies only to measure 'distance'" in text
+    assert "Favourability > Source > Mafic volcanic host: proxy where (a filter of features) applies " \
+           "only to a vector layer" in text

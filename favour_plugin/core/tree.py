@@ -80,6 +80,14 @@ class Proxy:
     or absolute. ``measure`` is None for a raster; ``"distance"`` (map units of
     the grid CRS to the nearest feature) or ``"attribute"`` (``field`` burnt
     into the cells the features cover) for a vector layer.
+
+    A vector proxy may keep only some of its features: ``where`` is
+    ``{"field": name, "values": [v, ...]}``, the features whose field holds
+    one of the values (numbers for a numeric field, text for a text field).
+    It is plain data, never SQL: the raster layer builds GDAL's attribute
+    filter from it with every name and value quoted. ``margin`` (map units of
+    the grid CRS, distance proxies only) lets features up to that far outside
+    the grid count in the distances inside it.
     """
 
     path: str
@@ -88,7 +96,12 @@ class Proxy:
     measure: str | None = None
     field: str | None = None
     resampling: str | None = None
+    where: dict | None = None
+    margin: float | None = None
     extra: dict = _field(default_factory=dict)
+
+    #: The tree-file keys this class reads; others are kept in ``extra``.
+    KEYS = ("path", "band", "layer", "measure", "field", "resampling", "where", "margin")
 
     @property
     def is_vector(self) -> bool:
@@ -107,16 +120,17 @@ class Proxy:
         """Build a proxy from its tree-file form (already checked by the tree's reader)."""
         return cls(path=doc["path"], band=doc.get("band"), layer=doc.get("layer"),
                    measure=doc.get("measure"), field=doc.get("field"),
-                   resampling=doc.get("resampling"),
-                   extra={k: copy.deepcopy(v) for k, v in doc.items() if k not in _PROXY_KEYS})
+                   resampling=doc.get("resampling"), where=copy.deepcopy(doc.get("where")),
+                   margin=doc.get("margin"),
+                   extra={k: copy.deepcopy(v) for k, v in doc.items() if k not in cls.KEYS})
 
     def to_dict(self) -> dict:
         """Return the tree-file form."""
         out = {"path": self.path}
-        for key in ("band", "layer", "measure", "field", "resampling"):
+        for key in self.KEYS[1:]:
             value = getattr(self, key)
             if value is not None:
-                out[key] = value
+                out[key] = copy.deepcopy(value)
         if not self.is_vector and self.band is None:
             out["band"] = 1
         out.update(copy.deepcopy(self.extra))
@@ -768,6 +782,51 @@ def _proxy_problems(proxy: Proxy) -> Iterator[str]:
     if proxy.band is not None and (isinstance(proxy.band, bool) or not isinstance(proxy.band, int)
                                    or not 1 <= proxy.band <= MAX_CELLS_PER_SIDE):
         yield f"proxy band must be a whole number from 1 to {MAX_CELLS_PER_SIDE}, got {_brief(proxy.band)}"
+    if proxy.where is not None:
+        if not proxy.is_vector:
+            yield "proxy where (a filter of features) applies only to a vector layer"
+        yield from _filter_problems(proxy.where)
+    if proxy.margin is not None:
+        margin = _usable_number(proxy.margin)
+        if margin is None or margin < 0:
+            yield (f"proxy margin must be a distance of 0 or more (map units of the grid, at most "
+                   f"{MAX_MAGNITUDE:g}), got {_brief(proxy.margin)}")
+        if proxy.measure != "distance":
+            yield "proxy margin (features outside the grid that count) applies only to measure 'distance'"
+
+
+#: Most values a proxy's filter may list: a filter picks classes of features, not features.
+MAX_FILTER_VALUES = 1000
+
+
+def _filter_problems(where) -> Iterator[str]:
+    """Yield the messages for what is wrong with a proxy's ``where`` (plain data, never SQL)."""
+    if not isinstance(where, Mapping):
+        yield (f"proxy where must be an object {{'field': name, 'values': [...]}}, "
+               f"got {_brief(where)}")
+        return
+    unknown = sorted(str(key) for key in where if key not in ("field", "values"))
+    if unknown:
+        yield f"proxy where holds {', '.join(map(repr, unknown))}; it takes only 'field' and 'values'"
+    field_name = where.get("field")
+    if not isinstance(field_name, str) or not field_name:
+        yield f"proxy where.field must name a field of the layer, got {_brief(field_name)}"
+    values = where.get("values")
+    if not isinstance(values, list):
+        yield (f"proxy where.values must be a list of the values to keep (numbers or text), "
+               f"got {_brief(values)}")
+        return
+    if not values:
+        yield "proxy where.values lists no value; tick at least one value of the field to keep"
+    if len(values) > MAX_FILTER_VALUES:
+        yield f"proxy where.values lists {len(values)} values; a filter takes at most {MAX_FILTER_VALUES}"
+    for i, value in enumerate(values[:MAX_FILTER_VALUES]):
+        if isinstance(value, str):
+            continue
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or _usable_number(value) is None:
+            yield (f"proxy where.values[{i}] must be a number or text (a value the field holds), "
+                   f"got {_brief(value)}")
+            break
 
 
 def _grid_problems(grid) -> Iterator[str]:

@@ -258,11 +258,29 @@ class TreeController(QObject):
         self._set(path, tr("Set band"), lambda n: setattr(n.proxy, "band", int(band)))
 
     def set_measure(self, path: str, measure: str, field: str | None = None) -> None:
-        """Choose what a vector proxy measures: "distance", or "attribute" with a numeric field."""
+        """Choose what a vector proxy measures: "distance", or "attribute" with a numeric field.
+
+        A margin counts only for distances, so it is dropped with the change.
+        """
         def change(node: Node) -> None:
             node.proxy.measure = measure
             node.proxy.field = field if measure == "attribute" else None
+            if measure != "distance":
+                node.proxy.margin = None
         self._set(path, tr("Set measure"), change)
+
+    def set_filter(self, path: str, where: dict | None) -> None:
+        """Keep only the features whose field holds one of the values (``{"field", "values"}``; None: all)."""
+        def change(node: Node) -> None:
+            node.proxy.where = copy.deepcopy(where) if where else None
+        self._set(path, tr("Set feature filter"), change)
+
+    def set_margin(self, path: str, margin: float) -> None:
+        """Count features up to ``margin`` map units outside the grid (0: none); stepping is one undo step."""
+        value = float(margin)
+        self._set(path, tr("Set margin"), lambda n: setattr(n.proxy, "margin", (
+            None if value == 0 else int(value) if value.is_integer() else value)),
+                  merge_key=f"margin|{path}")
 
     def _set(self, path: str, text: str, change: Callable[[Node], None],
              merge_key: str | None = None) -> None:
@@ -273,6 +291,11 @@ class TreeController(QObject):
     def set_tree_name(self, name: str) -> None:
         """Set the model's name."""
         self.edit(tr("Rename model"), lambda t: setattr(t, "name", name), merge_key="tree-name")
+
+    def set_description(self, text: str) -> None:
+        """Set the model's description; typing in a row is one undo step."""
+        self.edit(tr("Edit description"), lambda t: setattr(t, "description", text),
+                  merge_key="tree-description")
 
     def set_grid_reference(self, path: str | None) -> None:
         """Take the grid from this raster, or (None) from the first raster proxy."""
@@ -319,6 +342,16 @@ class TreeController(QObject):
             tree.remove(path)
             return parent_path
         return self.edit(tr("Remove"), change, focus=path)
+
+    def move_to(self, path: str, parent_path: str, index: int) -> str:
+        """Move a node to position ``index`` under ``parent_path`` (a drag); return its new path.
+
+        ``index`` counts the new parent's children without the node moved. One
+        move is one undo step; a refused move (under itself, under a leaf that
+        reads a layer, beside a sibling of the same name, the root) raises
+        ParameterError and leaves the tree as it was.
+        """
+        return self.edit(tr("Move"), lambda t: t.move(path, parent_path, index), focus=path)
 
     def move_by(self, path: str, delta: int) -> str:
         """Move a node ``delta`` places among its siblings; return its path."""

@@ -41,7 +41,7 @@ from .problems import ProblemChecker
 from .results import add_results
 from .run_bar import RunBar
 from .run_job import RunJob, remove_empty_folders, run_folder
-from .tree_view import CriteriaTreeView
+from .tree_view import CriteriaTreeView, drop_destination
 from .workshop_view import WorkshopView
 
 
@@ -136,6 +136,7 @@ class FavourDock(QgsDockWidget):
         self.checker.updated.connect(self._problems_updated)
         self.tree_view.path_selected.connect(lambda _path: self._show_selected())
         self.tree_view.layers_dropped.connect(self.drop_layers)
+        self.tree_view.node_dropped.connect(self.move_node)
         self.editor.layer_chosen.connect(self.add_layer)
         self.run_bar.run_requested.connect(lambda quick: self.run(quick))
         self.run_bar.cancel_requested.connect(self.cancel_run)
@@ -154,6 +155,8 @@ class FavourDock(QgsDockWidget):
         """Stop listening and drop pending work (the plugin is unloading)."""
         self.checker.disconnect_all()
         self.samples.forget()
+        self.editor.proxy_fields.choices.forget()
+        self.editor.membership_panel.classes.forget()
         self.workshop.shutdown()
         self._quick_again = False
         if self.job is not None and self.job.running:
@@ -268,6 +271,8 @@ class FavourDock(QgsDockWidget):
                                   "{error}").format(error=exc), Qgis.Critical, 0)
             return False
         self.samples.forget()
+        self.editor.proxy_fields.choices.forget()
+        self.editor.membership_panel.classes.forget()
         return True
 
     def save_tree_file(self, path: str | None = None) -> str | None:
@@ -334,6 +339,30 @@ class FavourDock(QgsDockWidget):
         path = self.selected_path()
         if path and path != self.controller.tree.root.name:
             self._guard(self.controller.move_by, path, delta)
+
+    def move_node(self, path: str, target: str, place: str) -> str | None:
+        """Move the node at ``path`` "above", "on" (under, last) or "below" the node ``target``.
+
+        What a drag in the tree view does: one undoable step. A refused move
+        (under itself, under a criterion that reads a layer, beside a sibling
+        of the same name, beside the root, the root itself) changes nothing and
+        the message bar says why. Returns the node's new path, or None.
+        """
+        tree = self.controller.tree
+        if tree is None:
+            return None
+        try:
+            destination = drop_destination(tree, path, target, place)
+            if destination is None:
+                return None
+            moved = self.controller.move_to(path, *destination)
+        except (FavourError, ValueError, KeyError) as exc:
+            message = exc.args[0] if isinstance(exc, KeyError) and exc.args else exc
+            notify(self.iface, tr("{path} was not moved: {why}").format(path=path, why=message),
+                   Qgis.Warning)
+            return None
+        self.select(moved)
+        return moved
 
     def _fill_layer_menu(self) -> None:
         menu = self.actions.layer_menu

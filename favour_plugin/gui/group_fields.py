@@ -1,4 +1,9 @@
-"""The fields of a combining node (component, operator, γ, nodata rule) and of the model (name, grid)."""
+"""The fields of a combining node (component, operator, γ, nodata rule) and of the model.
+
+The model's fields are its name, its description (what the model is for and
+the mineral system it stands for, kept in the tree file and the project) and
+the grid every layer is aligned to.
+"""
 
 from __future__ import annotations
 
@@ -6,7 +11,15 @@ import os
 
 from qgis.core import Qgis, QgsMapLayerProxyModel
 from qgis.gui import QgsMapLayerComboBox
-from qgis.PyQt.QtWidgets import QCheckBox, QComboBox, QFormLayout, QGroupBox, QLabel, QLineEdit
+from qgis.PyQt.QtWidgets import (
+    QCheckBox,
+    QComboBox,
+    QFormLayout,
+    QGroupBox,
+    QLabel,
+    QLineEdit,
+    QPlainTextEdit,
+)
 
 from ..core.tree import COMPONENTS, Proxy, Tree
 from .common import notify, tr
@@ -91,7 +104,7 @@ class GroupFields(QGroupBox):
 
 
 class ModelFields(QGroupBox):
-    """The model's name and the grid every layer is aligned to."""
+    """The model's name, its description and the grid every layer is aligned to."""
 
     def __init__(self, controller, iface=None, parent=None) -> None:
         super().__init__(tr("Model"), parent)
@@ -101,6 +114,10 @@ class ModelFields(QGroupBox):
         form = QFormLayout(self)
         self.name_edit = QLineEdit()
         self.name_edit.setPlaceholderText(tr("A name for the model"))
+        self.description_edit = QPlainTextEdit()
+        self.description_edit.setPlaceholderText(tr("What the model is for: the deposit type, the "
+                                                    "mineral system it stands for, its sources."))
+        self.description_edit.setFixedHeight(84)
         self.grid_box = QgsMapLayerComboBox()
         self.grid_box.setFilters(raster_filter())
         self.grid_box.setAllowEmptyLayer(True)
@@ -109,9 +126,11 @@ class ModelFields(QGroupBox):
         self.grid_label = QLabel()
         self.grid_label.setWordWrap(True)
         form.addRow(tr("Name"), self.name_edit)
+        form.addRow(tr("Description"), self.description_edit)
         form.addRow(tr("Grid from"), self.grid_box)
         form.addRow("", self.grid_label)
         self.name_edit.editingFinished.connect(self._name_edited)
+        self.description_edit.textChanged.connect(self._description_edited)
         # Only what the user picks: the box also changes when a layer leaves the project.
         self.grid_box.activated.connect(lambda _index: self._grid_chosen(self.grid_box.currentLayer()))
 
@@ -121,6 +140,8 @@ class ModelFields(QGroupBox):
         try:
             if self.name_edit.text() != tree.name:
                 self.name_edit.setText(tree.name)
+            if self.description_edit.toPlainText() != tree.description:
+                self.description_edit.setPlainText(tree.description)
             reference = (tree.grid or {}).get("reference")
             layer = None
             if reference:
@@ -137,6 +158,11 @@ class ModelFields(QGroupBox):
         if not self._updating and self.controller.tree is not None and \
                 self.name_edit.text() != self.controller.tree.name:
             self.controller.set_tree_name(self.name_edit.text())
+
+    def _description_edited(self) -> None:
+        if not self._updating and self.controller.tree is not None and \
+                self.description_edit.toPlainText() != self.controller.tree.description:
+            self.controller.set_description(self.description_edit.toPlainText())
 
     def _grid_chosen(self, layer) -> None:
         if self._updating or self.controller.tree is None:

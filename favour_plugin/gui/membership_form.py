@@ -1,10 +1,12 @@
 """The membership function of a criterion: its type and parameters, as a form.
 
 The form shows one page per kind of function: numbered parameters, a table
-of points, or a class → score table filled from the classes present in the
-sampled layer. It reports edits as whole specifications (the tree-file
-form); the controller validates nothing here, the tree's problems say what
-is wrong.
+of points, or a class → score table that lists every class of the layer with
+its cells — counted over the whole raster where it can be
+(:mod:`favour_plugin.raster.classes`), else found in the sampled values —
+beside the classes already scored. It reports edits as whole specifications
+(the tree-file form); the controller validates nothing here, the tree's
+problems say what is wrong.
 """
 
 from __future__ import annotations
@@ -157,10 +159,12 @@ class _PointsPage(QWidget):
 
 
 class _ClassesPage(QWidget):
-    """A class code → value table, filled from the classes present in the layer.
+    """A class code → value table: the classes scored and every class found in the layer.
 
     ``kind`` "categories" holds each class's score μ; "weights" each class's
     weight of evidence W (μ = 1 / (1 + exp(−W)), from an analogue district).
+    A class of the layer not scored yet has an empty value: it takes the
+    score of the other classes until one is typed.
     """
 
     edited = pyqtSignal(str)
@@ -173,18 +177,21 @@ class _ClassesPage(QWidget):
         layout = QVBoxLayout(self)
         layout.setContentsMargins(0, 0, 0, 0)
         self.table = QTableWidget(0, 3)
-        self.table.setHorizontalHeaderLabels([tr("Class"), tr("Cells sampled"),
-                                              tr("Score μ") if kind == "categories" else tr("Weight W")])
+        self.value_header = tr("Score μ") if kind == "categories" else tr("Weight W")
+        self.table.setHorizontalHeaderLabels([tr("Class"), tr("Cells sampled"), self.value_header])
         self.table.horizontalHeader().setSectionResizeMode(QHeaderView.Stretch)
         self.table.verticalHeader().setVisible(False)
         self.table.verticalHeader().setDefaultSectionSize(22)
         self.table.setMaximumHeight(170)
         self.table.itemChanged.connect(lambda _item: self.edited.emit(self.key))
         layout.addWidget(self.table)
+        self.count_note = QLabel()
+        self.count_note.setWordWrap(True)
+        layout.addWidget(self.count_note)
         row = QHBoxLayout()
-        self.fill_button = QPushButton(tr("Add the layer's classes"))
-        self.fill_button.setToolTip(tr("List every class found in the sampled layer; classes "
-                                       "already listed keep their value."))
+        self.fill_button = QPushButton(tr("Score the layer's classes"))
+        self.fill_button.setToolTip(tr("Give every class of the layer not scored yet a starting value; "
+                                       "classes already scored keep their value."))
         self.fill_button.clicked.connect(self.fill_requested)
         row.addWidget(self.fill_button)
         row.addStretch(1)
@@ -201,11 +208,23 @@ class _ClassesPage(QWidget):
         self.default_box.valueChanged.connect(lambda _v: self.edited.emit("default"))
         self.counts: dict = {}
 
-    def show_spec(self, spec: dict, counts: dict | None = None) -> None:
-        """Show the scores of ``spec``; ``counts`` (class → sampled cells) fills the middle column."""
+    def show_spec(self, spec: dict, counts: dict | None = None, note: str = "", whole: bool = False) -> None:
+        """Show the scores of ``spec`` and a row for every class in ``counts`` (class → cells).
+
+        ``whole`` says the counts cover every cell of the layer (else a
+        sample); ``note`` says where they come from, under the table.
+        """
         self.counts = dict(counts or {})
-        scores = spec.get(self.key) or {}
+        scores = dict(spec.get(self.key) or {})
+        scored = {_code_value(code) for code in scores}
+        for code in self.counts:
+            if code not in scored:
+                scores[code_key(code)] = None
         rows = sorted(scores.items(), key=lambda kv: code_order(kv[0]))
+        self.table.setHorizontalHeaderLabels([tr("Class"), tr("Cells") if whole else tr("Cells sampled"),
+                                              self.value_header])
+        self.count_note.setText(note)
+        self.count_note.setVisible(bool(note))
         self.table.blockSignals(True)
         self.table.setRowCount(len(rows))
         for i, (code, score) in enumerate(rows):
@@ -214,8 +233,11 @@ class _ClassesPage(QWidget):
             count_item = QTableWidgetItem("" if count is None else str(count))
             count_item.setFlags(count_item.flags() & ~Qt.ItemIsEditable)
             self.table.setItem(i, 1, count_item)
-            self.table.setItem(i, 2, QTableWidgetItem(f"{score:.8g}" if isinstance(score, (int, float))
-                                                      else ""))
+            value_item = QTableWidgetItem(f"{score:.8g}" if isinstance(score, (int, float)) else "")
+            if score is None:
+                value_item.setToolTip(tr("Not scored yet: the class takes the score of the other classes "
+                                         "until one is typed here."))
+            self.table.setItem(i, 2, value_item)
         self.table.blockSignals(False)
         default = spec.get("default")
         self.nodata_box.blockSignals(True)
@@ -314,8 +336,13 @@ class MembershipForm(QWidget):
         if hasattr(page, "edited"):
             page.edited.connect(lambda key, kind=kind: self._page_edited(kind, key))
 
-    def show_spec(self, spec: dict | None, class_counts: dict | None = None) -> None:
-        """Show a membership specification (None: a linear ramp still to be set)."""
+    def show_spec(self, spec: dict | None, class_counts: dict | None = None, count_note: str = "",
+                  whole: bool = False) -> None:
+        """Show a membership specification (None: a linear ramp still to be set).
+
+        ``class_counts`` (class → cells), ``count_note`` and ``whole`` go to the
+        class table (see :meth:`_ClassesPage.show_spec`).
+        """
         self.spec = copy.deepcopy(spec) if spec else {}
         kind = self.spec.get("type", "linear")
         index = self.type_box.findData(kind)
@@ -325,7 +352,7 @@ class MembershipForm(QWidget):
             return
         self.pages.setCurrentWidget(page)
         if kind in CLASS_TYPES:
-            page.show_spec(self.spec, class_counts)
+            page.show_spec(self.spec, class_counts, count_note, whole)
         elif hasattr(page, "show_spec"):
             page.show_spec(self.spec)
         self.fit_button.setEnabled(kind not in (*CLASS_TYPES, "identity"))

@@ -5,17 +5,25 @@ Joins the :class:`~.membership_form.MembershipForm` and the
 proxy's sampled values, which the :class:`~.histogram.SampleService` takes off
 the main thread. Choosing another function type, or *Fit to data*, starts
 from parameters spanning the sampled values (:mod:`.defaults`).
+
+The class table of a raster criterion lists every class of the whole band
+with its cells: :func:`~favour_plugin.raster.classes.count_classes` runs in a
+task (:class:`~.tasks.KeyedTasks`) once a class table is shown; until it is
+in, or where the band holds continuous values, the sample's classes stand in
+and the note under the table says so.
 """
 
 from __future__ import annotations
 
 from qgis.PyQt.QtWidgets import QGroupBox, QVBoxLayout
 
+from ..raster.classes import count_classes
 from .common import tr
 from .defaults import code_key, starting_membership
-from .membership_form import MembershipForm, code_order
+from .membership_form import CLASS_TYPES, MembershipForm, code_order
 from .plot import MembershipPlot, _parameter_xs
 from .sampling import sample_key
+from .tasks import KeyedTasks
 
 
 def is_falling(spec: dict | None, is_distance: bool) -> bool:
@@ -45,6 +53,11 @@ class MembershipPanel(QGroupBox):
         self.tree = None
         self.path = ""
         self.key = None
+        #: (file, band) of a raster criterion, whose classes are counted over the whole band.
+        self.count_key = None
+        self.classes = KeyedTasks(count_classes, tr("Favour: counting the classes of {0}"), self)
+        self.classes.ready.connect(self._counts_arrived)
+        self.classes.failed.connect(self._counts_arrived)
         layout = QVBoxLayout(self)
         self.form = MembershipForm()
         self.plot = MembershipPlot()
@@ -61,12 +74,53 @@ class MembershipPanel(QGroupBox):
         """Show the leaf's function; ask for its layer's sample if it has a layer."""
         self.tree, self.path = tree, path
         sample = None
-        self.key = None
+        self.key = self.count_key = None
         if node.proxy is not None:
             self.key = sample_key(tree, path)
             sample = self.samples.request(tree, path)
-        self.form.show_spec(node.membership, sample.classes if sample is not None else None)
+            if not node.proxy.is_vector:
+                self.count_key = (str(node.proxy.resolve(tree.base_dir)), node.proxy.band or 1)
+        self._show_form(node.membership, sample)
         self._draw(node.membership, sample)
+
+    def _show_form(self, spec, sample) -> None:
+        """Show the function, with the class table's counts and where they come from."""
+        counts, note, whole = self._class_counts(spec, sample)
+        self.form.show_spec(spec, counts, note, whole)
+
+    def _class_counts(self, spec, sample) -> tuple[dict | None, str, bool]:
+        """Return (class → cells, a note on where they come from, whether they cover every cell)."""
+        sampled = sample.classes if sample is not None else None
+        note = tr("Classes found in a sample of about {n} cells.").format(n=sample.count) \
+            if sampled else ""
+        kind = (spec or {}).get("type")
+        if self.count_key is None or kind not in CLASS_TYPES:
+            return sampled, note, False
+        counted = self.classes.request(*self.count_key)
+        if counted is not None:
+            source = tr("from the raster's attribute table") if counted.source == "attribute table" \
+                else tr("counted over every block")
+            return counted.as_dict(), tr("Every class of the whole raster: {n} cells, {source}.").format(
+                n=counted.total, source=source), True
+        error = self.classes.error(self.count_key)
+        if error:
+            return sampled, tr("{note} The whole raster is not counted: {error}").format(
+                note=note, error=error).strip(), False
+        return sampled, tr("Counting the classes of the whole raster…"), False
+
+    def _classes(self) -> list:
+        """Return the layer's class codes: every class of the raster if counted, else the sample's."""
+        counted = self.classes.get(self.count_key) if self.count_key is not None else None
+        if counted is not None:
+            return list(counted.codes)
+        sample = self.samples.get(self.key) if self.key is not None else None
+        return list(sample.classes) if sample is not None and sample.classes else []
+
+    def _counts_arrived(self, key, *args) -> None:
+        node = self._node()
+        if key == self.count_key and node is not None:
+            sample = self.samples.get(self.key) if self.key is not None else None
+            self._show_form(node.membership, sample)
 
     def _draw(self, spec, sample) -> None:
         note = ""
@@ -82,7 +136,7 @@ class MembershipPanel(QGroupBox):
         node = self._node()
         if key == self.key and node is not None:
             sample = self.samples.get(key)
-            self.form.show_spec(node.membership, sample.classes if sample is not None else None)
+            self._show_form(node.membership, sample)
             self._draw(node.membership, sample)
 
     def _node(self):
@@ -109,9 +163,7 @@ class MembershipPanel(QGroupBox):
             return
         is_distance = node.proxy is not None and node.proxy.measure == "distance"
         low, high = self._range(node.membership)
-        sample = self.samples.get(self.key) if self.key is not None else None
-        classes = list(sample.classes) if sample is not None and sample.classes else []
-        spec = starting_membership(kind, low, high, classes, is_falling(node.membership, is_distance))
+        spec = starting_membership(kind, low, high, self._classes(), is_falling(node.membership, is_distance))
         self.controller.set_membership(self.path, spec)
 
     def _fit(self) -> None:
@@ -131,13 +183,13 @@ class MembershipPanel(QGroupBox):
         node = self._node()
         if node is None:
             return
-        sample = self.samples.get(self.key) if self.key is not None else None
-        if sample is None or not sample.classes:
+        classes = self._classes()
+        if not classes:
             return
         spec = dict(node.membership or {"type": "categories", "default": None})
         key, start = ("weights", 0.0) if spec.get("type") == "weights" else ("scores", 0.5)
         values = dict(spec.get(key) or {})
-        for code in sample.classes:
+        for code in classes:
             values.setdefault(code_key(code), start)
         spec[key] = dict(sorted(values.items(), key=lambda kv: code_order(kv[0])))
         spec.setdefault("default", None)

@@ -1,6 +1,7 @@
 """The editor of the selected node: its name, weight and rationale, then what its kind needs.
 
-The model's root shows the model's name and grid; a combining node its
+Every node has a rationale box (typing in it is one undo step); the model's
+root shows the model's name, description and grid; a combining node its
 operator; a leaf its layer and membership function with the plot. The
 editor shows the controller's tree and sends every edit to the controller;
 it is refreshed after each change without losing what is being typed.
@@ -44,8 +45,6 @@ class NodeEditor(QWidget):
         self.weight_box.setToolTip(tr("Counts when the node above takes a weighted mean."))
         self.weight_label = QLabel(tr("Weight"))
         self.rationale_edit = QPlainTextEdit()
-        self.rationale_edit.setPlaceholderText(tr("Why this matters: the argument for the criterion, "
-                                                  "and for its scores."))
         self.rationale_edit.setFixedHeight(84)
         form.addRow(tr("Name"), self.name_edit)
         form.addRow(self.weight_label, self.weight_box)
@@ -87,6 +86,7 @@ class NodeEditor(QWidget):
             self.weight_label.setVisible(not is_root)
             if self.rationale_edit.toPlainText() != node.rationale:
                 self.rationale_edit.setPlainText(node.rationale)
+            self.rationale_edit.setPlaceholderText(_rationale_hint(node, is_root))
             self.model_fields.setVisible(is_root)
             if is_root:
                 self.model_fields.show_tree(tree)
@@ -121,3 +121,13 @@ class NodeEditor(QWidget):
     def _rationale_edited(self) -> None:
         if not self._updating and self.path and self.controller.tree is not None:
             self.controller.set_rationale(self.path, self.rationale_edit.toPlainText())
+
+
+def _rationale_hint(node, is_root: bool) -> str:
+    """Return what the rationale box asks for: of the model's root, a component or a criterion."""
+    if is_root:
+        return tr("Why the components are combined this way.")
+    if node.component:
+        return tr("Why this process matters for the deposits sought: a summary of the argument for "
+                  "its criteria.")
+    return tr("Why this matters: the argument for the criterion, and for its scores.")

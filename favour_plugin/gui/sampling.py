@@ -9,6 +9,7 @@ code the evaluation uses (:func:`~favour_plugin.raster.vector.vector_source`).
 
 from __future__ import annotations
 
+import json
 import shutil
 import tempfile
 from dataclasses import dataclass
@@ -49,11 +50,11 @@ class ProxySample:
 
 
 def sample_key(tree: Tree, path: str) -> tuple:
-    """Return what identifies a proxy's sample: file, band, layer, measure, field (and grid for vectors)."""
+    """Return what identifies a proxy's sample: file, band, layer, measure, field, filter, margin, grid."""
     proxy = tree.find(path).proxy
     grid = repr(sorted((tree.grid or {}).items())) if proxy.is_vector else None
     return (str(proxy.resolve(tree.base_dir)), proxy.band or 1, proxy.layer, proxy.measure,
-            proxy.field, grid)
+            proxy.field, grid, json.dumps(proxy.where, sort_keys=True, default=str), repr(proxy.margin))
 
 
 def sample_proxy(tree: Tree, path: str, max_cells: int = 250_000) -> ProxySample:
@@ -73,7 +74,8 @@ def sample_proxy(tree: Tree, path: str, max_cells: int = 250_000) -> ProxySample
             with gdal_job():
                 grid = reference_grid(tree)[0].coarsened(max_cells)
                 spec = vector_source(str(proxy.resolve(tree.base_dir)), proxy.layer, proxy.measure,
-                                     proxy.field, grid, work, path, Feedback())
+                                     proxy.field, grid, work, path, Feedback(), where=proxy.where,
+                                     margin=proxy.margin)
             values = sample_values(spec.target, spec.band, max_cells)
         finally:
             shutil.rmtree(work, ignore_errors=True)

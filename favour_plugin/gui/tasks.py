@@ -4,6 +4,8 @@ A :class:`FunctionTask` calls a function that touches no widget and no
 project (input checks, value samples); QGIS calls :meth:`FunctionTask.finished`
 in the main thread, which passes the result or the error to a callback. Tasks
 are kept alive in ``_LIVE`` until then (QGIS holds only the C++ side).
+:class:`KeyedTasks` keeps the answers of one such function by its arguments
+(filter choices, class counts), so each is computed once.
 """
 
 from __future__ import annotations
@@ -11,6 +13,7 @@ from __future__ import annotations
 from collections.abc import Callable
 
 from qgis.core import QgsApplication, QgsTask
+from qgis.PyQt.QtCore import QObject, pyqtSignal
 
 _LIVE: set = set()
 
@@ -62,3 +65,64 @@ def start(task: QgsTask) -> QgsTask:
 def live_tasks() -> int:
     """Return how many of Favour's tasks have not finished yet."""
     return len(_LIVE)
+
+
+class KeyedTasks(QObject):
+    """Answers of one plain function by its arguments, each computed once in a task and remembered.
+
+    :meth:`request` returns the answer for its arguments if it is in, else
+    starts ``function(*key)`` in a :class:`FunctionTask` and returns None;
+    ``ready(key)`` or ``failed(key, message)`` follows in the main thread.
+    A failure is remembered too (asked again only after :meth:`forget`).
+    """
+
+    ready = pyqtSignal(object)
+    failed = pyqtSignal(object, str)
+
+    def __init__(self, function: Callable, description: str, parent: QObject | None = None) -> None:
+        super().__init__(parent)
+        self.function = function
+        self.description = description
+        self._found: dict = {}
+        self._errors: dict = {}
+        self._pending: dict = {}
+
+    def get(self, key: tuple):
+        """Return the answer for ``key`` if it is in, else None."""
+        return self._found.get(key)
+
+    def error(self, key: tuple) -> str | None:
+        """Return why the answer for ``key`` could not be had, if it could not."""
+        return self._errors.get(key)
+
+    def request(self, *key):
+        """Return the answer for these arguments if known, else start computing it and return None."""
+        if key in self._found:
+            return self._found[key]
+        if key not in self._pending and key not in self._errors:
+            task = FunctionTask(self.description.format(*key), self.function, key,
+                                lambda result, error: self._done(key, result, error))
+            self._pending[key] = task
+            start(task)
+        return None
+
+    def pending(self) -> int:
+        """Return how many answers are being computed."""
+        return len(self._pending)
+
+    def forget(self) -> None:
+        """Drop every answer and stop waiting for running tasks (files may have changed)."""
+        for task in self._pending.values():
+            task.forget()
+        self._pending.clear()
+        self._found.clear()
+        self._errors.clear()
+
+    def _done(self, key, result, error) -> None:
+        self._pending.pop(key, None)
+        if error is not None:
+            self._errors[key] = str(error)
+            self.failed.emit(key, str(error))
+            return
+        self._found[key] = result
+        self.ready.emit(key)

@@ -4,19 +4,38 @@ The widget only shows a :class:`~favour_plugin.core.tree.Tree`; it is rebuilt
 from the tree after every change (models are small) and keeps the selection
 and the folded rows by node path. Layers dragged from the layers panel or
 the browser are handed on with :attr:`CriteriaTreeView.layers_dropped`.
+
+Nodes are dragged within the view to reorder or re-parent them. The two
+kinds of drop are told apart by their MIME type: layers come as QGIS's
+``application/x-vnd.qgis.qgis.uri``, a node as :data:`NODE_MIME` holding its
+path and the view it left. The view never moves its own rows: it hands the
+node, the row it was dropped on and where on that row (:func:`drop_place`)
+to :attr:`CriteriaTreeView.node_dropped`, the dock turns them into a move of
+the tree (:func:`drop_destination`) through the controller, one undo step,
+and the rows are rebuilt from the tree.
 """
 
 from __future__ import annotations
 
-from qgis.PyQt.QtCore import Qt, pyqtSignal
-from qgis.PyQt.QtGui import QBrush
+import json
+import uuid
+
+from qgis.PyQt.QtCore import QMimeData, Qt, pyqtSignal
+from qgis.PyQt.QtGui import QBrush, QDrag
 from qgis.PyQt.QtWidgets import QAbstractItemView, QHeaderView, QTreeWidget, QTreeWidgetItem
 
+from ..core.errors import ParameterError
 from ..core.tree import PATH_SEPARATOR, Node, Tree
 from .common import RUST, icon, tr
 from .layers import URI_MIME
 
 PATH_ROLE = Qt.UserRole + 1
+
+#: MIME type of a node dragged within the view: JSON ``{"view": token, "path": path}``.
+NODE_MIME = "application/x-favour-node"
+
+#: Where on a row a node is dropped: above it, onto it (under it, last), below it.
+PLACES = ("above", "on", "below")
 
 OPERATOR_LABELS = {"and": "fuzzy AND", "or": "fuzzy OR", "product": "product", "sum": "algebraic sum",
                    "gamma": "gamma", "weighted_mean": "weighted mean"}
@@ -30,6 +49,7 @@ def describe(node: Node) -> str:
         if node.proxy is not None and node.proxy.is_vector:
             layer = tr("distance to {layer}").format(layer=node.proxy.layer or layer) \
                 if node.proxy.measure == "distance" else f"{node.proxy.layer or layer}.{node.proxy.field}"
+            layer += _options_text(node.proxy)
         return f"{tr(kind) if kind else tr('no function')} · {layer}"
     spec = node.operator or {}
     text = tr(OPERATOR_LABELS.get(spec.get("type"), tr("no operator")))
@@ -38,6 +58,19 @@ def describe(node: Node) -> str:
     if spec.get("nodata") == "ignore":
         text += " · " + tr("skip missing")
     return text
+
+
+def _options_text(proxy) -> str:
+    """Return a vector proxy's filter and margin as the row shows them: `` (order: 1, 2; margin 500)``."""
+    parts = []
+    where = proxy.where
+    if isinstance(where, dict) and isinstance(where.get("field"), str) \
+            and isinstance(where.get("values"), list):
+        values = ", ".join(str(v) for v in where["values"][:4]) + (" …" if len(where["values"]) > 4 else "")
+        parts.append(f"{where['field']}: {values or '?'}")
+    if isinstance(proxy.margin, (int, float)) and not isinstance(proxy.margin, bool) and proxy.margin > 0:
+        parts.append(tr("margin {margin:g}").format(margin=proxy.margin))
+    return f" ({'; '.join(parts)})" if parts else ""
 
 
 def node_icon_name(node: Node, is_root: bool) -> str:
@@ -63,6 +96,57 @@ def _rows(tree: Tree):
             stack.append((path + PATH_SEPARATOR + child.name, child, False))
 
 
+def drop_place(top: int, height: int, y: int) -> str:
+    """Return where a drop at height ``y`` falls on a row spanning ``top`` to ``top + height``.
+
+    The bands are Qt's own for its drop indicator (a margin of a 5.5th of the
+    row, 2 to 12 pixels): near the top edge "above", near the bottom "below",
+    else "on".
+    """
+    margin = max(2, min(12, round(height / 5.5)))
+    if y - top < margin:
+        return "above"
+    if top + height - 1 - y < margin:
+        return "below"
+    return "on"
+
+
+def drop_destination(tree: Tree, path: str, target: str, place: str) -> tuple[str, int] | None:
+    """Return (new parent path, index) for the node at ``path`` dropped ``place`` the row ``target``.
+
+    "on" puts it last under ``target``; "above" and "below" put it beside
+    ``target``, before or after it. ``index`` counts the new parent's children
+    without the node moved, as :meth:`Tree.move` takes it. None when the drop
+    leaves everything where it is (a node dropped on itself).
+
+    Raises
+    ------
+    ParameterError
+        A node dropped beside the root (the tree has one root).
+    KeyError
+        No node at ``path`` or ``target``.
+    """
+    if place not in PLACES:
+        raise ValueError(f"place must be one of {', '.join(PLACES)}, got {place!r}")
+    tree.find(path)
+    target_node = tree.find(target)
+    if target == path:
+        return None
+    moved_name = path.rpartition(PATH_SEPARATOR)[2]
+    old_parent = path.rpartition(PATH_SEPARATOR)[0]
+    if place == "on":
+        others = [c.name for c in target_node.children if not (target == old_parent and c.name == moved_name)]
+        return target, len(others)
+    if target == tree.root.name:
+        raise ParameterError(tr("a criterion cannot stand beside the root, the tree has one; drop it "
+                                "onto the root to put it directly under it"))
+    parent = target.rpartition(PATH_SEPARATOR)[0]
+    siblings = [c.name for c in tree.find(parent).children
+                if not (parent == old_parent and c.name == moved_name)]
+    index = siblings.index(target.rpartition(PATH_SEPARATOR)[2])
+    return parent, index + (1 if place == "below" else 0)
+
+
 class CriteriaTreeView(QTreeWidget):
     """Shows the tree; emits the selected node's path and layers dropped onto a node.
 
@@ -72,10 +156,14 @@ class CriteriaTreeView(QTreeWidget):
         The selected node changed ('' for none).
     layers_dropped(str, object)
         Mime data of layers dropped onto the node at the path.
+    node_dropped(str, str, str)
+        A node (its path) dragged onto the row of another (its path), "above",
+        "on" or "below" it.
     """
 
     path_selected = pyqtSignal(str)
     layers_dropped = pyqtSignal(str, object)
+    node_dropped = pyqtSignal(str, str, str)
 
     def __init__(self, parent=None) -> None:
         super().__init__(parent)
@@ -85,8 +173,12 @@ class CriteriaTreeView(QTreeWidget):
         self.header().setStretchLastSection(True)
         self.setSelectionMode(QAbstractItemView.SingleSelection)
         self.setAcceptDrops(True)
-        self.setDragDropMode(QAbstractItemView.DropOnly)
+        self.setDragEnabled(True)
+        self.setDragDropMode(QAbstractItemView.DragDrop)
+        self.setDefaultDropAction(Qt.MoveAction)
         self.setDropIndicatorShown(True)
+        #: Marks the nodes this view sends, so a node dragged from another window is not taken.
+        self._token = uuid.uuid4().hex
         self._items: dict[str, QTreeWidgetItem] = {}
         self._folded: set[str] = set()
         self.itemSelectionChanged.connect(self._selection_changed)
@@ -187,27 +279,94 @@ class CriteriaTreeView(QTreeWidget):
     def _selection_changed(self) -> None:
         self.path_selected.emit(self.selected_path())
 
-    # -- dropping layers ------------------------------------------------------------
+    # -- dragging nodes, dropping nodes and layers -------------------------------------
+
+    def node_mime(self, path: str) -> QMimeData:
+        """Return the drag data of the node at ``path`` (what a drag from this view carries)."""
+        mime = QMimeData()
+        mime.setData(NODE_MIME, json.dumps({"view": self._token, "path": path}).encode("utf-8"))
+        return mime
+
+    def dragged_path(self, mime) -> str | None:
+        """Return the path of a node dragged from this view, or None for anything else."""
+        if mime is None or not mime.hasFormat(NODE_MIME):
+            return None
+        try:
+            doc = json.loads(bytes(mime.data(NODE_MIME)).decode("utf-8"))
+        except (UnicodeDecodeError, ValueError):
+            return None
+        if not isinstance(doc, dict) or doc.get("view") != self._token \
+                or not isinstance(doc.get("path"), str):
+            return None
+        return doc["path"]
+
+    def mimeTypes(self) -> list[str]:  # noqa: N802 (Qt API name)
+        """Name the drops the view takes: layers, and its own nodes."""
+        return [URI_MIME, NODE_MIME]
+
+    def dropMimeData(self, parent, index, data, action) -> bool:  # noqa: N802 (Qt API name)
+        """Never let Qt move rows itself: the tree moves, and the rows are rebuilt from it."""
+        return False
+
+    def startDrag(self, actions) -> None:  # noqa: N802 (Qt API name)
+        """Drag the selected node (not the root, which stays where it is)."""
+        item = self.currentItem()
+        if item is None or item.parent() is None:
+            return
+        drag = QDrag(self)
+        drag.setMimeData(self.node_mime(item.data(0, PATH_ROLE)))
+        drag.exec(Qt.MoveAction)
+
+    def place_at(self, pos) -> tuple[str, str] | None:
+        """Return (path of the row, place on it) under the point ``pos`` of the viewport, or None."""
+        item = self.itemAt(pos)
+        if item is None:
+            return None
+        rect = self.visualItemRect(item)
+        return item.data(0, PATH_ROLE), drop_place(rect.top(), rect.height(), pos.y())
 
     def _accepts(self, event) -> bool:
         return event.mimeData().hasFormat(URI_MIME) and self.itemAt(event.pos()) is not None
 
     def dragEnterEvent(self, event):  # noqa: N802 (Qt API name)
-        """Accept layers from the layers panel or the browser."""
-        if event.mimeData().hasFormat(URI_MIME):
+        """Accept layers from the layers panel or the browser, and this view's own nodes."""
+        if self.dragged_path(event.mimeData()) is not None:
+            super().dragEnterEvent(event)
+            event.acceptProposedAction()
+        elif event.mimeData().hasFormat(URI_MIME):
             event.acceptProposedAction()
         else:
             event.ignore()
 
     def dragMoveEvent(self, event):  # noqa: N802 (Qt API name)
-        """Accept the drop only over a node."""
-        if self._accepts(event):
+        """Accept the drop only over a node (a node: with Qt's line showing where it would go)."""
+        if self.dragged_path(event.mimeData()) is not None:
+            super().dragMoveEvent(event)  # draws the indicator and scrolls near the edges
+            if self.itemAt(event.pos()) is not None:
+                event.setDropAction(Qt.MoveAction)
+                event.accept()
+            else:
+                event.ignore()
+        elif self._accepts(event):
             event.acceptProposedAction()
         else:
             event.ignore()
 
     def dropEvent(self, event):  # noqa: N802 (Qt API name)
-        """Hand the dropped layers on with the path of the node under the pointer."""
+        """Hand a dropped node on with the row and place, or dropped layers with the node's path."""
+        path = self.dragged_path(event.mimeData())
+        if path is not None:
+            place = self.place_at(event.pos())
+            # Qt's own handling ends the drag state; it moves nothing (dropMimeData refuses).
+            event.setDropAction(Qt.CopyAction)
+            super().dropEvent(event)
+            if place is None:
+                event.ignore()
+                return
+            event.setDropAction(Qt.MoveAction)
+            event.accept()
+            self.node_dropped.emit(path, *place)
+            return
         if not self._accepts(event):
             event.ignore()
             return

@@ -8,7 +8,9 @@ on another CRS is aligned); ``"error"`` ones do.
 
 from __future__ import annotations
 
+import math
 import os
+from collections.abc import Mapping
 
 import numpy as np
 from osgeo import gdal
@@ -19,7 +21,7 @@ from .engine import reference_grid
 from .gdalenv import gdal_job
 from .grid import Grid, crs_label
 from .sources import open_raster
-from .vector import read_layer_facts
+from .vector import filter_problem, margin_problem, read_layer_facts
 
 
 def _grid_of(tree: Tree) -> tuple[Grid | None, list[Problem]]:
@@ -67,6 +69,9 @@ def _proxy_problems(tree: Tree, path: str, node, grid: Grid | None) -> list[Prob
                 return [Problem(path, f"the vector layer {facts.name} has no features", "error")]
             if facts.srs_wkt is None:
                 return [Problem(path, f"the vector layer {facts.name} has no CRS", "error")]
+            found = _vector_option_problems(path, proxy, facts, grid)
+            if found:
+                return found
             if grid is not None and not grid.same_crs(facts.srs_wkt):
                 return [Problem(path, f"features are in another CRS than the grid's "
                                       f"{crs_label(grid.srs)}; they will be reprojected", "warning")]
@@ -86,6 +91,28 @@ def _proxy_problems(tree: Tree, path: str, node, grid: Grid | None) -> list[Prob
                               f"{crs_label(grid.srs)}; it will be reprojected", "warning")]
     return [Problem(path, f"the layer's cells ({own.cell_x:g} x {own.cell_y:g}, {own.width} x "
                           f"{own.height}) differ from the grid's; it will be resampled", "warning")]
+
+
+def _vector_option_problems(path: str, proxy, facts, grid: Grid | None) -> list[Problem]:
+    """Return the problems of a vector proxy's filter (against the layer's fields) and margin.
+
+    A filter or margin the tree itself refuses (:meth:`Tree.problems`) is
+    already listed there; this checks them against the layer and the grid.
+    """
+    found = []
+    where = proxy.where
+    if isinstance(where, Mapping) and isinstance(where.get("field"), str) and \
+            isinstance(where.get("values"), list) and where["values"]:
+        problem = filter_problem(facts, where)
+        if problem:
+            found.append(Problem(path, problem, "error"))
+    margin = proxy.margin
+    if grid is not None and isinstance(margin, (int, float)) and not isinstance(margin, bool) \
+            and math.isfinite(margin) and margin > 0:
+        problem = margin_problem(grid, float(margin))
+        if problem:
+            found.append(Problem(path, problem, "error"))
+    return found
 
 
 def sample_values(path: str, band: int = 1, max_cells: int = 250_000) -> np.ndarray:

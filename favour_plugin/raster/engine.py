@@ -107,7 +107,8 @@ def _prepare_sources(tree: Tree, plan: EvaluationPlan, grid: Grid, workdir: str,
         if proxy.is_vector:
             start = span[0] + done * step
             sources[leaf.path] = vector_source(path, proxy.layer, proxy.measure, proxy.field, grid,
-                                               workdir, leaf.path, feedback, (start, start + step))
+                                               workdir, leaf.path, feedback, (start, start + step),
+                                               where=proxy.where, margin=proxy.margin)
             done += 1
         else:
             resampling = proxy.resampling or ("nearest" if leaf.membership.categorical else "bilinear")
