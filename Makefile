@@ -39,6 +39,7 @@ bench: $(STAMP)
 	$(PY) bench/bench_evaluate.py
 	$(PY) bench/bench_evidence.py
 	$(PY) bench/bench_montecarlo.py
+	$(PY) bench/bench_validation.py
 
 screenshot: $(STAMP)
 	$(PY) scripts/screenshot_dock.py

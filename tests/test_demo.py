@@ -332,3 +332,20 @@ def test_demo_workshop_flags_the_planted_dispute_and_writes_the_uncertainty(demo
     assert np.nanmin(rasters["std"]) >= 0 and np.nanmax(rasters["std"]) > 0
     assert Path(shop["sensitivity"]["chart"]).read_bytes()[:4] == b"\x89PNG"
     assert any(row["auc"] is not None for row in shop["rows"])
+
+
+def test_demo_validates_its_map_and_hands_over_targets_and_a_report(demo_run):
+    """The demo validates its map, writes ranked targets and a report with every figure.
+
+    Properties that must hold: the AUC in (0.5, 1] and inside its interval,
+    ranks 1, 2, … in order, occurrences inside the targets, figures embedded.
+    """
+    validated = json.loads(Path(demo_run["validation"]).read_text(encoding="utf-8"))
+    low, high = validated["auc_ci"]
+    assert 0.5 < validated["auc"] <= 1 and low <= validated["auc"] <= high
+    assert validated["n_deposits"] >= 10
+    done = demo_run["targets_report"]
+    assert done["rows"] and [row["rank"] for row in done["rows"]] == list(range(1, len(done["rows"]) + 1))
+    assert sum(row.get("occurrences", 0) or 0 for row in done["rows"]) >= 1
+    html = Path(done["report"]).read_text(encoding="utf-8")
+    assert html.count('src="data:image/png;base64,') >= 8 and "not a resource estimate" in html

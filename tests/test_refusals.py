@@ -38,6 +38,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from osgeo import gdal
 
 from favour_plugin.core import membership as m
 from favour_plugin.core import overlay as o
@@ -66,6 +67,11 @@ from favour_plugin.core.wofe import WeightsTable
 from favour_plugin.core.workshop import check_expert_weights
 from favour_plugin.raster.engine import evaluate_tree, evaluate_tree_file, reproduce
 from favour_plugin.raster.ensemble_jobs import MC_OUTPUTS, monte_carlo, sensitivity
+from favour_plugin.raster.holdout_jobs import holdouts
+from favour_plugin.raster.redundancy_jobs import redundancy
+from favour_plugin.raster.report_jobs import write_report
+from favour_plugin.raster.target_jobs import find_targets
+from favour_plugin.raster.validation_jobs import validate
 from favour_plugin.raster.wofe_jobs import evidence_weights, posterior
 from favour_plugin.raster.workshop_jobs import pairwise_job
 from tests.helpers import (
@@ -153,6 +159,7 @@ from tests.refusal_cases import (
     weights_into_source,
     with_surrogate_name,
     within,
+    written_lineage,
     written_weights,
 )
 
@@ -215,6 +222,9 @@ RULE_LAYER = "A proxy layer that is missing, empty, without a CRS, or off the gr
 RULE_READ = "An input that cannot be read part-way through (a damaged or truncated file)."
 RULE_MU = "A raster given as a membership whose values are not in [0, 1]."
 RULE_LINEAGE = "Reproducing an output that has no lineage beside it."
+RULE_FILTER_MARGIN = ("A vector proxy filtered on a field its layer lacks, by values that are neither "
+                      "numbers nor text or not of the field's kind, or given a margin that is negative, "
+                      "wider than the grid or on a measure other than distance.")
 # Weights of evidence
 RULE_EVIDENCE = ("Weights of evidence with no usable deposits, evidence that is all nodata, a "
                  "single class, non-integer classes, a geographic grid, or breaks where none apply.")
@@ -247,6 +257,29 @@ RULE_EDIT = ("An edit of the tree that would give two siblings one name, a name 
              "criteria under a leaf that reads a layer, a node under itself, or no root.")
 RULE_MC_REQUEST = ("A Monte Carlo or sensitivity run asked for outputs it does not write, a top area "
                    "outside 0–100 %, or a table that is not CSV.")
+# Validation
+RULE_VALIDATION_DEPOSITS = ("Validation with no usable deposits: an empty or unknown layer, points "
+                            "without a CRS or none on the grid (after reprojection), or every deposit on "
+                            "nodata.")
+RULE_VALIDATION_MAP = "A map to validate with no valid cell, or with infinite values."
+RULE_VALIDATION_REQUEST = ("A validation asked for a top area outside 0–100 %, no bootstrap resample, a "
+                           "confidence level outside 0–1, or a result that is not .json (or curves not "
+                           ".csv).")
+RULE_HOLDOUT_BLOCKS = ("Hold-out blocks whose side is not a positive length, or one block holding every "
+                       "deposit.")
+RULE_REDUNDANCY = ("A redundancy check of a tree with fewer than two leaves, with a threshold outside 0–1, "
+                   "or with a lineage that is not a posterior's.")
+# Targets and the report
+RULE_TARGETS_CUT = ("Targets from a raster with no valid cell, a threshold that leaves no cell, or a minimum "
+                    "area larger than the grid or than every zone.")
+RULE_TARGETS_INPUTS = ("Component or robustness rasters on another grid than the favourability, or "
+                       "occurrences in a CRS that cannot be reprojected to the grid's.")
+RULE_TARGETS_REQUEST = ("Targets asked for with a top area outside 0–100 %, both a threshold and a "
+                        "validation result, a negative minimum area or merge distance, or an output that is "
+                        "not a .gpkg file or is named after the favourability.")
+RULE_REPORT = ("A report asked for with an output that is not an .html file, a chart that is not a PNG "
+               "image, a sensitivity table without the sensitivity job's columns, or a posterior that is "
+               "not a posterior's lineage.")
 
 
 CASES: list[Case] = [
@@ -961,6 +994,61 @@ CASES += [
 ]
 
 
+def _faults_call(where=None, margin=None, measure="distance") -> Callable:
+    """A case: measure a fault layer (an 'order' field) on the scene's grid with a filter or a margin."""
+    def make(scene: Scene):
+        from favour_plugin.raster.grid import Grid
+        from favour_plugin.raster.vector import vector_source
+
+        ds = gdal.Open(scene.raster())
+        grid = Grid.from_dataset(ds, "mag")
+        ds = None
+        faults = write_vector(scene.root / "faults.gpkg", [
+            f"LINESTRING ({ORIGIN[0] + 500} {ORIGIN[1] - 500}, {ORIGIN[0] + 3000} {ORIGIN[1] - 4000})"],
+            layer="faults", fields={"order": [1]})
+        work = scene.folder("work")
+        return lambda: vector_source(faults, "faults", measure, "order" if measure == "attribute" else None,
+                                     grid, work, "Favourability > Faults", Feedback(), where=where,
+                                     margin=margin)
+    return make
+
+
+FAULTS_PROXY = ("root", "children", 1, "children", 0, "proxy")
+
+CASES += [
+    Case("filter on a field the layer lacks", RULE_FILTER_MARGIN, "core",
+         _faults_call(where={"field": "rank", "values": [1]}), InputError,
+         r"^Favourability > Faults: the filter's field 'rank' is not a field of layer faults; it has order$"),
+    Case("filter by text on a numeric field", RULE_FILTER_MARGIN, "core",
+         _faults_call(where={"field": "order", "values": ["first"]}), InputError,
+         r"Favourability > Faults: field 'order' of layer faults holds numbers; the filter's value "
+         r"'first' is not a number"),
+    Case("filter value true in a tree file", RULE_FILTER_MARGIN, "core",
+         lambda s: partial(Tree.from_dict, changed(example_tree_doc(), (*FAULTS_PROXY, "where"),
+                                                   {"field": "order", "values": [True]})),
+         TreeFileError, r"Favourability > Pathway > Near faults: proxy\.where\.values\[0\]: must be of "
+                        r"type number or string, got true"),
+    Case("filter as SQL text kept by the dock", RULE_FILTER_MARGIN, "core",
+         lambda s: Tree.from_draft(changed(example_tree_doc(), (*FAULTS_PROXY, "where"),
+                                           "order IN (1, 2) OR 1=1")).compile,
+         TreeFileError, r"Favourability > Pathway > Near faults: proxy where must be an object "
+                        r"\{'field': name, 'values': \[\.\.\.\]\}, got 'order IN \(1, 2\) OR 1=1'"),
+    Case("negative margin in a tree file", RULE_FILTER_MARGIN, "core",
+         lambda s: partial(Tree.from_dict, changed(example_tree_doc(), (*FAULTS_PROXY, "margin"), -250)),
+         TreeFileError,
+         r"Favourability > Pathway > Near faults: proxy\.margin: must be at least 0, got -250"),
+    Case("negative margin (cli)", RULE_FILTER_MARGIN, "cli",
+         lambda s: (write_vector(s.root / "f.gpkg", points([(2, 2)]), layer="f"),
+                    cli_tree(s, set_at((*MAG, "proxy"), {"path": "f.gpkg", "measure": "distance",
+                                                         "margin": -1})))[1],
+         ParameterError, r"Favourability > Source > Mag: proxy\.margin: must be at least 0, got -1"),
+    Case("margin wider than the grid", RULE_FILTER_MARGIN, "core", _faults_call(margin=1e6), InputError,
+         r"Favourability > Faults: a margin of 1e\+06 map units is wider than the grid itself"),
+    Case("margin on an attribute", RULE_FILTER_MARGIN, "core", _faults_call(margin=100, measure="attribute"),
+         InputError, r"Favourability > Faults: a margin applies only to measure 'distance'"),
+]
+
+
 def _edit_tree() -> Tree:
     """A small sound tree for the edit refusals: root AND over two leaves and a group with one leaf."""
     linear = {"type": "linear", "lower": 0, "upper": 1}
@@ -1031,6 +1119,245 @@ CASES += [
     Case("sensitivity table not CSV", RULE_MC_REQUEST, "core",
          lambda s: partial(sensitivity, small_workshop(s.root)[0], str(s.out / "s.txt")), ParameterError,
          r"the sensitivity table .*s\.txt must end in \.csv"),
+]
+
+
+# -- validation, hold-outs and redundancy --------------------------------------------------------
+
+
+def _map(scene: Scene, values=None, nodata=None) -> str:
+    """A 20 x 20 favourability map in the scene (random values unless given)."""
+    values = np.random.default_rng(6).random((20, 20)).astype(np.float32) if values is None else values
+    return scene.raster("fav.tif", values, nodata=nodata)
+
+
+def _known(scene: Scene, name: str = "d.gpkg", cells=((1, 1), (5, 5), (9, 3)), **kwargs) -> str:
+    """Deposit points at the centres of ``cells`` (layer "d")."""
+    return write_vector(scene.root / name, points(cells), layer="d", **kwargs)
+
+
+def _validate_call(**change) -> Callable:
+    """A case: validation of the scene's map and deposits, with ``change`` (values or builders) applied."""
+    def make(scene: Scene):
+        kwargs = {"raster": _map(scene), "deposits": _known(scene), "output_json": scene.earlier("v.json")}
+        kwargs.update({k: v(scene) if callable(v) else v for k, v in change.items()})
+        return lambda: validate(**kwargs)
+    return make
+
+
+def _validate_cli(*extra, deposits=None, raster=None) -> Callable:
+    """A case: ``validate`` on the command line, the map and deposits built by the given builders."""
+    return lambda s: ["validate", (raster or _map)(s), (deposits or _known)(s), "--json",
+                      s.earlier("v.json"), *extra]
+
+
+def _holdout_call(block_size, via: str = "core") -> Callable:
+    """A case: hold-outs of the scene's striped evidence and three deposits, blocks of ``block_size``."""
+    def make(scene: Scene):
+        evidence, deposits = scene.evidence()
+        output = scene.earlier("h.json")
+        if via == "cli":
+            return ["holdouts", evidence, "--deposits", deposits, "--unit-area", str(CELL_KM2),
+                    "--block-size", str(block_size), "--json", output]
+        return lambda: holdouts([evidence], deposits, output, unit_area_km2=CELL_KM2, block_size=block_size)
+    return make
+
+
+def _redundancy_call(tree=None, **change) -> Callable:
+    """A case: redundancy of the scene's two-leaf tree (or ``tree(scene)``) with ``change`` applied."""
+    def make(scene: Scene):
+        kwargs = {k: v(scene) if callable(v) else v for k, v in change.items()}
+        model, output = tree(scene) if tree else scene.tree(), scene.earlier("r.json")
+        return lambda: redundancy(model, output, **kwargs)
+    return make
+
+
+def _no_deposits(scene: Scene) -> str:
+    """An empty point layer ("d")."""
+    return write_vector(scene.root / "none.gpkg", [], layer="d")
+
+
+def _diagonal(value: float) -> np.ndarray:
+    """A 20 x 20 map of 0.5 with ``value`` on its diagonal."""
+    return np.where(np.eye(20, dtype=bool), value, 0.5).astype(np.float32)
+
+
+def _all_nodata(scene: Scene) -> str:
+    """A 20 x 20 map whose every cell is nodata."""
+    return _map(scene, np.full((20, 20), -1.0, np.float32), nodata=-1.0)
+
+
+def _one_leaf(scene: Scene) -> Tree:
+    """A tree of one leaf over the scene's raster."""
+    return Tree.from_dict(tree_doc([leaf("Mag", scene.raster(), {"type": "linear", "lower": 0, "upper": 1})]))
+
+
+def _evaluated(scene: Scene) -> str:
+    """A favourability written by Favour in ``scene/written`` (its lineage is an evaluation's)."""
+    written_lineage(scene)
+    return str(scene.root / "written" / "fav.tif")
+
+
+CASES += [
+    Case("validate: no deposits", RULE_VALIDATION_DEPOSITS, "core",
+         _validate_call(deposits=_no_deposits), InputError,
+         r"deposits: the vector layer none\.gpkg:d has no features; validation needs known deposits"),
+    Case("validate: no deposits (cli)", RULE_VALIDATION_DEPOSITS, "cli", _validate_cli(deposits=_no_deposits),
+         InputError, r"none\.gpkg:d has no features; validation needs known deposits"),
+    Case("validate: unknown deposits layer", RULE_VALIDATION_DEPOSITS, "core",
+         _validate_call(deposits_layer="nope"), InputError, r"d\.gpkg has no layer 'nope'; it has d"),
+    Case("validate: deposits without a CRS", RULE_VALIDATION_DEPOSITS, "core",
+         _validate_call(deposits=lambda s: _known(s, "nocrs.gpkg", crs=None)), GridError,
+         r"nocrs\.gpkg:d has no CRS; assign one first"),
+    Case("validate: deposits in another CRS, off the grid", RULE_VALIDATION_DEPOSITS, "core",
+         _validate_call(deposits=lambda s: write_vector(
+             s.root / "far.gpkg", ["POINT (10 10)", "POINT (11 10)"], layer="d", crs="EPSG:4326")),
+         InputError, r"none of the 2 points of far\.gpkg:d falls on the grid"),
+    Case("validate: every deposit on nodata", RULE_VALIDATION_DEPOSITS, "core",
+         _validate_call(raster=lambda s: _map(s, _diagonal(-1.0), nodata=-1.0),
+                        deposits=lambda s: _known(s, cells=((1, 1), (5, 5)))), InputError,
+         r"none of the 2 deposit cells lies on a valid cell of the raster \(all are nodata\)"),
+    Case("validate: a map with no valid cell", RULE_VALIDATION_MAP, "core",
+         _validate_call(raster=_all_nodata), InputError,
+         r"fav\.tif: the raster has no valid cell: all 400 cells are nodata"),
+    Case("validate: a map with no valid cell (cli)", RULE_VALIDATION_MAP, "cli",
+         _validate_cli(raster=_all_nodata), InputError, r"the raster has no valid cell"),
+    Case("validate: infinite values", RULE_VALIDATION_MAP, "core",
+         _validate_call(raster=lambda s: _map(s, _diagonal(np.inf))), InputError,
+         r"fav\.tif: 20 cells hold an infinite value"),
+    Case("validate: top area of 120 %", RULE_VALIDATION_REQUEST, "core", _validate_call(capture=[5, 120]),
+         ParameterError, r"percentages strictly between 0 and 100 \(5 for the top 5 %\), got \[5, 120\]"),
+    Case("validate: top area of 0 % (cli)", RULE_VALIDATION_REQUEST, "cli",
+         _validate_cli("--capture", "0,10"), ParameterError,
+         r"percentages strictly between 0 and 100 .*got \[0\.0, 10\.0\]"),
+    Case("validate: top areas that are not numbers (cli)", RULE_VALIDATION_REQUEST, "cli",
+         _validate_cli("--capture", "five"), ParameterError,
+         r"--capture: 'five' is not a list of percentages"),
+    Case("validate: top area of 150 % (processing)", RULE_VALIDATION_REQUEST, "processing",
+         lambda s: ("favour:validate", {"INPUT": _map(s), "DEPOSITS": _known(s), "CAPTURE": "5, 150",
+                                        "OUTPUT_JSON": s.earlier("v.json")}),
+         Exception, r"percentages strictly between 0 and 100"),
+    Case("validate: no bootstrap resample", RULE_VALIDATION_REQUEST, "core", _validate_call(resamples=0),
+         ParameterError, r"whole number of resamples from 1, got 0"),
+    Case("validate: confidence level of 95", RULE_VALIDATION_REQUEST, "core", _validate_call(level=95),
+         ParameterError, r"confidence level must lie strictly between 0 and 1 .*got 95"),
+    Case("validate: result not .json", RULE_VALIDATION_REQUEST, "core",
+         _validate_call(output_json=lambda s: s.earlier("v.txt")), OutputError, r"v\.txt must end in \.json"),
+    Case("validate: result over its deposits", RULE_OVER_INPUT, "core",
+         _validate_call(deposits=lambda s: _known(s, "d.json"), output_json=lambda s: s.path("d.json")),
+         OutputError, r"d\.json \(the validation result\) is a file this job reads: the deposits"),
+    Case("hold-out blocks of 0 m", RULE_HOLDOUT_BLOCKS, "core", _holdout_call(0.0), ParameterError,
+         r"the block size must be a positive number of map units, got 0\.0"),
+    Case("hold-out blocks of -5 m (cli)", RULE_HOLDOUT_BLOCKS, "cli", _holdout_call(-5, "cli"),
+         ParameterError, r"the block size must be a positive number of map units, got -5\.0"),
+    Case("one hold-out block holding every deposit", RULE_HOLDOUT_BLOCKS, "core", _holdout_call(1e7),
+         ParameterError, r"all 3 deposit cells fall in one block; nothing would be left"),
+    Case("redundancy of a single leaf", RULE_REDUNDANCY, "core", _redundancy_call(_one_leaf),
+         ParameterError, r"the tree has 1 leaf; redundancy compares pairs of leaves"),
+    Case("redundancy threshold of 1.5", RULE_REDUNDANCY, "core", _redundancy_call(threshold=1.5),
+         ParameterError,
+         r"threshold on \|r\| must lie strictly between 0 and 1 \(0\.8 by default\), got 1\.5"),
+    Case("redundancy with an evaluation's lineage", RULE_REDUNDANCY, "core",
+         _redundancy_call(posterior=_evaluated), InputError,
+         r"fav\.tif\.lineage\.json comes from a 'evaluate-tree' job; the conditional-independence table "
+         r"comes from the lineage of a weights-of-evidence posterior"),
+]
+
+
+# -- targets and the report ----------------------------------------------------------------------
+
+LOCAL_GRID = 'LOCAL_CS["site grid",UNIT["metre",1]]'
+
+
+def _targets_call(**change) -> Callable:
+    """A case: targets from the scene's map (top 10 %), with ``change`` (values or builders) applied."""
+    def make(scene: Scene):
+        kwargs = {"favourability": _map(scene), "output": scene.earlier("t.gpkg")}
+        kwargs.update({k: v(scene) if callable(v) else v for k, v in change.items()})
+        return lambda: find_targets(**kwargs)
+    return make
+
+
+def _report_call(**change) -> Callable:
+    """A case: the report of the scene's map, with ``change`` (values or builders) applied."""
+    def make(scene: Scene):
+        kwargs = {"favourability": _map(scene), "output": scene.earlier("r.html")}
+        kwargs.update({k: v(scene) if callable(v) else v for k, v in change.items()})
+        return lambda: write_report(**kwargs)
+    return make
+
+
+def _shifted(name: str) -> Callable:
+    """A builder: a 20 x 20 raster one cell east of the scene's map."""
+    return lambda s: s.raster(name, np.full((20, 20), 0.5, np.float32), origin=(ORIGIN[0] + CELL, ORIGIN[1]))
+
+
+CASES += [
+    Case("targets: a threshold leaving no cell", RULE_TARGETS_CUT, "core", _targets_call(threshold=1.5),
+         InputError, r"the threshold 1\.5 leaves no cell: the highest favourability of .*fav\.tif is 0\.9"),
+    Case("targets: a threshold leaving no cell (cli)", RULE_TARGETS_CUT, "cli",
+         lambda s: ["targets", _map(s), "-o", s.earlier("t.gpkg"), "--threshold", "2"], InputError,
+         r"the threshold 2 leaves no cell"),
+    Case("targets: a map with no valid cell", RULE_TARGETS_CUT, "core",
+         _targets_call(favourability=_all_nodata), InputError,
+         r"fav\.tif has no valid cell: every one of its 400 cells is nodata"),
+    Case("targets: minimum area larger than the grid", RULE_TARGETS_CUT, "core",
+         _targets_call(min_area_km2=5), ParameterError,
+         r"the minimum area 5 km² is larger than the whole grid \(4 km²"),
+    Case("targets: minimum area larger than the grid (processing)", RULE_TARGETS_CUT, "processing",
+         lambda s: ("favour:targets", {"INPUT": _map(s), "MIN_AREA": 5.0, "OUTPUT": s.earlier("t.gpkg")}),
+         Exception, r"the minimum area 5 km² is larger than the whole grid"),
+    Case("targets: no zone reaches the minimum area", RULE_TARGETS_CUT, "core",
+         _targets_call(top_percent=1, min_area_km2=3), InputError,
+         r"no zone reaches the minimum area 3 km²: the largest of the \d+ zones covers 0\.0\d km²"),
+    Case("targets: a component raster on another grid", RULE_TARGETS_INPUTS, "core",
+         _targets_call(components=lambda s: [_shifted("c.tif")(s)]), GridMismatchError,
+         r"the component raster c .*c\.tif is on another grid .*than the favourability"),
+    Case("targets: a robustness raster on another grid", RULE_TARGETS_INPUTS, "core",
+         _targets_call(robustness=_shifted("r.tif")), GridMismatchError,
+         r"the robustness raster .*r\.tif is on another grid"),
+    _evidence_case("deposits in a CRS that cannot be reprojected",
+                   lambda s: {"deposits": _known(s, "local.gpkg", crs=LOCAL_GRID)}, GridError,
+                   r"the points of local\.gpkg:d cannot be reprojected to the grid's CRS"),
+    Case("targets: occurrences that cannot be reprojected", RULE_TARGETS_INPUTS, "core",
+         _targets_call(deposits=lambda s: _known(s, "local.gpkg", crs=LOCAL_GRID)), GridError,
+         r"deposits: the layer local\.gpkg:d is in site grid, which cannot be reprojected to the grid's"),
+    Case("targets: occurrences that cannot be reprojected (cli)", RULE_TARGETS_INPUTS, "cli",
+         lambda s: ["targets", _map(s), "-o", s.earlier("t.gpkg"), "--deposits",
+                    _known(s, "local.gpkg", crs=LOCAL_GRID)], GridError, r"cannot be reprojected"),
+    Case("targets: top area of 0 %", RULE_TARGETS_REQUEST, "core", _targets_call(top_percent=0),
+         ParameterError,
+         r"the top area must be a percentage between 0 and 100 \(10 for the top 10 %\), got 0"),
+    Case("targets: a threshold and a validation result", RULE_TARGETS_REQUEST, "core",
+         _targets_call(threshold=0.5, validation=lambda s: s.text("v.json", "{}")), ParameterError,
+         r"give a favourability threshold or a validation result, not both"),
+    Case("targets: a negative merge distance", RULE_TARGETS_REQUEST, "core", _targets_call(merge_distance=-1),
+         ParameterError, r"the merge distance \(map units\) must be a number of 0 or more, got -1"),
+    Case("targets: output not a GeoPackage", RULE_TARGETS_REQUEST, "core",
+         _targets_call(output=lambda s: s.earlier("t.shp")), OutputError,
+         r"t\.shp must be a GeoPackage file name ending in \.gpkg"),
+    Case("targets: named after the favourability", RULE_TARGETS_REQUEST, "core",
+         _targets_call(output=lambda s: s.path("fav.gpkg")), OutputError,
+         r"would write their style .*fav\.qml, the name QGIS takes the favourability's own style from"),
+    Case("targets: output over the occurrences", RULE_OVER_INPUT, "core",
+         _targets_call(deposits=lambda s: _known(s, "d.gpkg"), output=lambda s: s.path("d.gpkg")),
+         OutputError, r"d\.gpkg \(the targets\) is a file this job reads: the deposits"),
+    Case("report: output not HTML", RULE_REPORT, "core", _report_call(output=lambda s: s.earlier("r.pdf")),
+         OutputError, r"r\.pdf must be an HTML file name ending in \.html"),
+    Case("report: output not HTML (cli)", RULE_REPORT, "cli",
+         lambda s: ["report", _map(s), "-o", s.earlier("r.txt")], OutputError, r"must be an HTML file name"),
+    Case("report: a chart that is not a PNG", RULE_REPORT, "core",
+         _report_call(sensitivity_chart=lambda s: s.text("chart.png", "not an image")), InputError,
+         r"the chart .*chart\.png is not a PNG image"),
+    Case("report: a sensitivity table of another kind", RULE_REPORT, "core",
+         _report_call(sensitivity_table=lambda s: s.text("s.csv", "a,b\n1,2\n")), InputError,
+         r"s\.csv lacks the columns 'label' and 'top_area_change_percent'"),
+    Case("report: a posterior that is not one", RULE_REPORT, "core", _report_call(posterior=_evaluated),
+         InputError, r"fav\.tif comes from a 'evaluate-tree' job, not a posterior"),
+    Case("report: its lineage over an input", RULE_OVER_INPUT, "core",
+         _report_call(output=lambda s: s.path("r.html"),
+                      validation=lambda s: s.text("r.html.lineage.json", "{}")),
+         OutputError, r"r\.html\.lineage\.json \(its lineage\) is a file this job reads: validation result"),
 ]
 
 

@@ -7,6 +7,11 @@
     python -m favour_plugin pairwise MATRIX.csv [--tree T --node PATH --tree-out T2.json]
     python -m favour_plugin montecarlo TREE SHEETS… -o FOLDER [-n 200] [--seed 1] [--mode experts]
     python -m favour_plugin sensitivity TREE --table S.csv [--chart S.png] [--deposits D.gpkg]
+    python -m favour_plugin validate MAP.tif DEPOSITS.gpkg --json OUT.json [--csv C.csv] [--held-out H.gpkg]
+    python -m favour_plugin holdouts EVIDENCE… --deposits D.gpkg --json OUT.json [--block-size 5000]
+    python -m favour_plugin redundancy TREE --json OUT.json [--threshold 0.8] [--posterior P.tif]
+    python -m favour_plugin targets MAP.tif -o T.gpkg [--top 10 | --threshold MU | --validation V.json]
+    python -m favour_plugin report MAP.tif -o R.html [--components DIR] [--validation V] [--targets T.gpkg]
 
 Every subcommand calls the same functions as the processing algorithms. Exit
 status: 0 on success (and, for ``reproduce``, identical cells), 1 when
@@ -25,7 +30,7 @@ import threading
 from ..about import VERSION
 from ..core.errors import FavourError
 from ..core.lineage import CAUTION
-from . import evaluate, workshop
+from . import evaluate, targets, validation, workshop
 from .console import ConsoleFeedback
 
 __all__ = ["ConsoleFeedback", "main"]
@@ -38,7 +43,7 @@ def _parser() -> argparse.ArgumentParser:
         epilog=CAUTION)
     parser.add_argument("--version", action="version", version=f"Favour {VERSION}")
     sub = parser.add_subparsers(dest="command", required=True)
-    for module in (evaluate, workshop):
+    for module in (evaluate, workshop, validation, targets):
         module.add_parsers(sub)
     return parser
 

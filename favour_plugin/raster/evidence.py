@@ -88,25 +88,32 @@ class DepositCells:
 
 
 def deposit_cells(path: str, layer_name: str | None, grid: Grid, feedback: Feedback,
-                  name: str = "deposits") -> DepositCells:
+                  name: str = "deposits", purpose: str = "weights of evidence") -> DepositCells:
     """Read deposit points and place them on ``grid``.
+
+    ``purpose`` names what needs the deposits, for the message when there
+    are none ("weights of evidence needs known deposits").
 
     Raises
     ------
     MissingInputError, InputError, GridError
-        Missing file, no features, no CRS, geometries that are not points,
-        or no point on the grid.
+        Missing file, no features, no CRS, a CRS that cannot be transformed
+        to the grid's, geometries that are not points, or no point on the grid.
     """
-    facts, label, source_srs = usable_layer(path, layer_name, name,
-                                            "; weights of evidence needs known deposits")
+    facts, label, source_srs = usable_layer(path, layer_name, name, f"; {purpose} needs known deposits")
     if "point" not in facts.geometry.lower():
         raise InputError(f"{name}: the layer {label} holds {facts.geometry} geometries; deposits must "
                          "be points")
     xs, ys = _read_points(path, facts.name)
     reprojected = not bool(source_srs.IsSame(grid.srs))
     if reprojected and xs.size:
-        transform = osr.CoordinateTransformation(source_srs, grid.srs)
-        points = np.asarray(transform.TransformPoints(np.column_stack([xs, ys]).tolist()))
+        try:
+            transform = osr.CoordinateTransformation(source_srs, grid.srs)
+            points = np.asarray(transform.TransformPoints(np.column_stack([xs, ys]).tolist()))
+        except RuntimeError as exc:
+            raise GridError(f"{name}: the points of {label} cannot be reprojected to the grid's CRS "
+                            f"{crs_label(grid.srs)} from their {crs_label(source_srs)} ({exc}); store "
+                            "them in the grid's CRS") from None
         xs, ys = points[:, 0], points[:, 1]
         feedback.info(f"{name}: {label} is in {crs_label(source_srs)}; its points were reprojected to "
                       f"the grid's {crs_label(grid.srs)}")

@@ -96,3 +96,100 @@ def _short(node: str, width: int = 38) -> str:
     """Return the last two names of a node path, wrapped to fit beside a bar."""
     parts = node.split(" > ")
     return "\n".join(textwrap.wrap(" › ".join(parts[-2:]), width)) or node
+
+
+#: Resolution of the report's figures (dots per inch).
+DPI = 96
+
+
+def png_bytes(figure) -> bytes:
+    """Save a figure as PNG into memory, close it and return the bytes."""
+    import io
+
+    plt = _pyplot()
+    buffer = io.BytesIO()
+    figure.savefig(buffer, format="png", dpi=DPI)
+    plt.close(figure)
+    return buffer.getvalue()
+
+
+def rate_curves_png(curves: dict[str, dict], auc: float | None = None,
+                    auc_ci: tuple[float, float] | None = None) -> bytes:
+    """Draw success-rate and prediction-rate curves; return the PNG's bytes.
+
+    Parameters
+    ----------
+    curves : dict
+        ``{"success_curve" | "prediction_curve": {"area": [...], "deposits": [...]}}``:
+        cumulative % of the area (cells ranked from high to low) against
+        cumulative % of the deposits.
+    auc, auc_ci : float, (float, float), optional
+        The success-rate AUC and its bootstrap interval, for the legend.
+    """
+    plt = _pyplot()
+    figure, ax = plt.subplots(figsize=(5.6, 4.6))
+    ax.plot([0, 100], [0, 100], color="#9a9a9a", linewidth=0.8, linestyle="--", label="no skill")
+    styles = {"success_curve": (_HIGH, "success rate (deposits used)"),
+              "prediction_curve": (RAMP[1][1], "prediction rate (held-out deposits)")}
+    for name, curve in curves.items():
+        colour, label = styles.get(name, (_NEUTRAL, name))
+        if name == "success_curve" and auc is not None:
+            label += f", AUC {auc:.3f}"
+            if auc_ci is not None:
+                label += f" ({auc_ci[0]:.3f}–{auc_ci[1]:.3f})"
+        elif curve.get("auc"):
+            label += f", AUC {curve['auc'][0]:.3f}" if isinstance(curve["auc"], list) else ""
+        ax.step(curve["area"], curve["deposits"], where="post", color=colour, linewidth=1.6, label=label)
+    ax.set_xlim(0, 100)
+    ax.set_ylim(0, 100)
+    ax.set_xlabel("area, cells ranked from most to least favourable (cumulative %)", fontsize=8)
+    ax.set_ylabel("deposits captured (cumulative %)", fontsize=8)
+    ax.tick_params(labelsize=7)
+    ax.grid(alpha=0.25, linewidth=0.5)
+    ax.legend(fontsize=7, loc="lower right")
+    figure.tight_layout()
+    return png_bytes(figure)
+
+
+def prediction_area_png(curve: dict, crossing=None) -> bytes:
+    """Draw the prediction–area plot: prediction rate and occupied area against the threshold.
+
+    The occupied area (% of the area at or above each threshold) is drawn
+    on an inverted right axis, so the curves cross where P % of the
+    deposits lie in (100 − P) % of the area (the prediction–area plot of
+    Yousefi & Carranza 2015 [YC15]_); the crossing is marked with P and
+    Nd = P / (100 − P).
+
+    Parameters
+    ----------
+    curve : dict
+        ``{"threshold": [...], "prediction": [...], "area": [...]}``, in %.
+    crossing : Crossing, optional
+        The crossing the validation found (``prediction_percent``,
+        ``area_percent``, ``threshold``, ``nd``).
+    """
+    plt = _pyplot()
+    figure, ax = plt.subplots(figsize=(5.6, 4.6))
+    ax.plot(curve["threshold"], curve["prediction"], color=_HIGH, linewidth=1.6,
+            label="prediction rate (% of deposits)")
+    ax.plot(curve["threshold"], [100.0 - a for a in curve["area"]], color=RAMP[1][1], linewidth=1.6,
+            label="occupied area (%, right axis)")
+    if crossing is not None and crossing.threshold is not None:
+        nd = crossing.nd if crossing.nd is not None else \
+            crossing.prediction_percent / max(1e-9, 100.0 - crossing.prediction_percent)
+        ax.scatter([crossing.threshold], [crossing.prediction_percent], s=40, color="#101010", zorder=5)
+        ax.annotate(f"P = {crossing.prediction_percent:.1f} % in {crossing.area_percent:.1f} % of the area\n"
+                    f"Nd = {nd:.2f}, threshold {crossing.threshold:.3f}",
+                    (crossing.threshold, crossing.prediction_percent), xytext=(8, -28),
+                    textcoords="offset points", fontsize=7)
+    ax.set_ylim(0, 100)
+    ax.set_xlabel("favourability threshold", fontsize=8)
+    ax.set_ylabel("prediction rate (% of deposits at or above)", fontsize=8)
+    right = ax.secondary_yaxis("right", functions=(lambda v: 100.0 - v, lambda v: 100.0 - v))
+    right.set_ylabel("occupied area (% of the area at or above)", fontsize=8)
+    right.tick_params(labelsize=7)
+    ax.tick_params(labelsize=7)
+    ax.grid(alpha=0.25, linewidth=0.5)
+    ax.legend(fontsize=7, loc="center left")
+    figure.tight_layout()
+    return png_bytes(figure)

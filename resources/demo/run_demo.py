@@ -3,13 +3,16 @@
 Generates the synthetic layers if they are missing, evaluates
 ``district.favour.json`` through Favour's one evaluation path
 (:func:`favour_plugin.raster.engine.evaluate_tree_file`), writes a PNG
-quicklook of the favourability with the known occurrences, and prints where
-every output is. Outputs go to ``build/demo/`` in the checkout.
+quicklook of the favourability with the known occurrences, runs the demo
+workshop and its uncertainty, writes the ranked targets and the report
+(``report.html``, one self-contained page), and prints where every output
+is. Outputs go to ``build/demo/`` in the checkout.
 """
 
 from __future__ import annotations
 
 import argparse
+import json
 import sys
 import textwrap
 from pathlib import Path
@@ -39,7 +42,10 @@ from favour_plugin.core.lineage import CAUTION  # noqa: E402
 from favour_plugin.core.tree import Tree  # noqa: E402
 from favour_plugin.raster.engine import evaluate_tree_file  # noqa: E402
 from favour_plugin.raster.ensemble_jobs import MC_OUTPUTS, monte_carlo, sensitivity  # noqa: E402
+from favour_plugin.raster.report_jobs import write_report  # noqa: E402
 from favour_plugin.raster.style import RAMP  # noqa: E402
+from favour_plugin.raster.target_jobs import find_targets  # noqa: E402
+from favour_plugin.raster.validation_jobs import validate  # noqa: E402
 from favour_plugin.raster.workshop_jobs import aggregate_scores  # noqa: E402
 
 TREE_FILE = HERE / "district.favour.json"
@@ -235,11 +241,13 @@ def values_at_points(raster: str | Path, xy: np.ndarray) -> np.ndarray:
 
 def run(tree_file: Path = TREE_FILE, out_folder: Path = OUT_FOLDER, feedback=None,
         seed: int = generate.DEFAULT_SEED, with_workshop: bool = True,
-        realisations: int = DEMO_REALISATIONS) -> dict:
+        realisations: int = DEMO_REALISATIONS, validation_json: Path | None = None) -> dict:
     """Generate missing layers, evaluate the tree, draw the quicklook; return the output paths.
 
     The layers are the ``layers/`` folder beside ``tree_file``. With
-    ``with_workshop`` the demo workshop runs too (:func:`run_workshop`).
+    ``with_workshop`` the demo workshop runs too (:func:`run_workshop`), and then the
+    targets and the report (:func:`run_targets_and_report`), which take the
+    validation result ``validation_json`` into the report when one is given.
     """
     tree_file, out_folder = Path(tree_file), Path(out_folder)
     layers = tree_file.parent / "layers"
@@ -260,9 +268,54 @@ def run(tree_file: Path = TREE_FILE, out_folder: Path = OUT_FOLDER, feedback=Non
                "lineage": result.lineage_file, "png": str(png), "result": result,
                "occurrences": {attributes["name"]: float(v) for (_, attributes), v in zip(occurrences, at)},
                "map_mean": result.lineage["statistics"][result.lineage["root"]]["mean"]}
+    if validation_json is None:
+        validation_json = run_validation(out_folder, result, layers, feedback)
+        outputs["validation"] = str(validation_json)
     if with_workshop:
         outputs["workshop"] = run_workshop(tree_file, out_folder, layers, feedback, realisations)
+        outputs["targets_report"] = run_targets_and_report(out_folder, result, layers, outputs["workshop"],
+                                                           feedback, validation_json)
     return outputs
+
+
+def run_validation(out_folder: Path, result, layers: Path, feedback) -> Path:
+    """Validate the demo map against the known occurrences; return the result's JSON file.
+
+    The tree was written from the mineral-systems model, not fitted to the
+    occurrences, so their curve is a prediction-rate curve.
+    """
+    validated = validate(result.output, str(layers / "occurrences.gpkg"), str(out_folder / "validation.json"),
+                         str(out_folder / "validation-curves.csv"), curve="prediction", feedback=feedback)
+    return Path(validated.json_file)
+
+
+#: The demo's targets: the top 10 % of the area, zones under a quarter of a km² dropped, zones
+#: within two cells (50 m) of each other merged.
+DEMO_TOP_PERCENT, DEMO_MIN_AREA_KM2, DEMO_MERGE_M = 10.0, 0.25, 50.0
+
+
+def run_targets_and_report(out_folder: Path, result, layers: Path, shop: dict, feedback,
+                           validation_json: Path | None = None) -> dict:
+    """Write the demo's ranked targets and its report (``targets/``, ``report.html``).
+
+    The targets take the top 10 % of the demo favourability with the component
+    rasters, the known occurrences and the Monte Carlo robustness; the report
+    holds every figure of the run, and the validation result when
+    ``validation_json`` is given.
+    """
+    targets = find_targets(result.output, str(out_folder / "targets" / "targets.gpkg"),
+                           top_percent=DEMO_TOP_PERCENT, min_area_km2=DEMO_MIN_AREA_KM2,
+                           merge_distance=DEMO_MERGE_M, components=str(out_folder / "components"),
+                           deposits=str(layers / "occurrences.gpkg"),
+                           robustness=shop["uncertainty"]["robustness"], feedback=feedback)
+    report = write_report(result.output, str(out_folder / "report.html"),
+                          components=str(out_folder / "components"),
+                          validation=str(validation_json) if validation_json else None,
+                          targets=targets.output, monte_carlo=list(shop["uncertainty"].values()),
+                          sensitivity_table=shop["sensitivity"]["table"],
+                          sensitivity_chart=shop["sensitivity"].get("chart"), feedback=feedback)
+    return {"targets": targets.output, "rows": targets.rows, "threshold": targets.threshold["value"],
+            "report": report.output, "figures": report.figures}
 
 
 def run_workshop(tree_file: Path, out_folder: Path, layers: Path, feedback,
@@ -322,6 +375,16 @@ def main(argv: list[str] | None = None) -> int:
         print(f"  Monte Carlo {name + ':':11s} {path}")
     print(f"  sensitivity:     {shop['sensitivity']['table']}")
     print(f"  tornado chart:   {shop['sensitivity']['chart']}")
+    validated = json.loads(Path(outputs["validation"]).read_text(encoding="utf-8"))
+    low, high = validated["auc_ci"]
+    print(f"  validation:      {outputs['validation']}  (AUC {validated['auc']:.3f}, "
+          f"95 % interval {low:.3f}–{high:.3f}, {validated['n_deposits']} occurrences; "
+          f"P–A crossing {validated['pa_crossing'][0]:.0f} % of them in {validated['pa_crossing'][1]:.0f} % "
+          "of the area)")
+    done = outputs["targets_report"]
+    print(f"  targets:         {done['targets']}  ({len(done['rows'])} zones, top "
+          f"{DEMO_TOP_PERCENT:g} % at favourability ≥ {done['threshold']:.3f})")
+    print(f"  report:          {done['report']}  ({len(done['figures'])} figures; open it in a browser)")
     print()
     print(CAUTION)
     return 0
