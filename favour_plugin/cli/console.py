@@ -56,6 +56,7 @@ def add_cluster(parser) -> None:
 
 def add_common(parser) -> None:
     """Add the options every long-running subcommand takes: threads, verbose, quiet."""
-    parser.add_argument("--threads", type=int, default=None, help="worker threads (default 2)")
+    parser.add_argument("--threads", type=int, default=None,
+                        help="worker threads (default: one per core, at most 16)")
     parser.add_argument("-v", "--verbose", action="store_true", help="print notes too")
     parser.add_argument("-q", "--quiet", action="store_true", help="no progress")

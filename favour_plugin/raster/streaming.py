@@ -1,7 +1,7 @@
 """Run a function over every window of a grid on a small pool of threads, results in order.
 
-GDAL and numpy release the GIL while they decompress and compute, so two
-threads keep both cores busy. Each worker thread owns a
+GDAL and numpy release the GIL while they decompress and compute, so one
+thread per core keeps the cores busy. Each worker thread owns a
 :class:`~favour_plugin.raster.sources.BlockReader` (a GDAL handle must not be
 shared between threads); results come back in window order, so whatever the
 caller writes never depends on timing or on the number of threads. Progress
@@ -21,7 +21,18 @@ from .blocks import Window, count_windows, iter_windows
 from .grid import Grid
 from .sources import BlockReader
 
-DEFAULT_THREADS = max(1, min(2, os.cpu_count() or 1))
+
+def machine_cores() -> int:
+    """Return the cores this process may run on (its CPU affinity where the system tells it)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return max(1, os.cpu_count() or 1)
+
+
+#: Worker threads per job: the machine's cores, at most 16 (two windows per thread are in
+#: flight, so memory grows with the count; past 16 the disk, not the cores, sets the pace).
+DEFAULT_THREADS = min(16, machine_cores())
 
 
 def map_windows(work: Callable[[Window, BlockReader], object], grid: Grid, feedback: Feedback,
