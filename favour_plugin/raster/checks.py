@@ -17,10 +17,10 @@ from osgeo import gdal
 
 from ..core.errors import FavourError
 from ..core.tree import Problem, Tree
-from .engine import reference_grid
 from .gdalenv import gdal_job
 from .grid import Grid, crs_label
 from .sources import open_raster
+from .tree_inputs import reference_grid
 from .vector import filter_problem, margin_problem, read_layer_facts
 
 

@@ -40,6 +40,7 @@ from .blocks import BLOCK_ROWS, iter_windows
 from .gdalenv import gdal_job
 from .grid import Grid
 from .sources import BlockReader, SourceSpec
+from .tree_inputs import read_leaves
 from .writer import NODATA, compression_options
 
 #: Bands (rows of windows) per task: enough work per task to hide the scheduling.
@@ -241,8 +242,6 @@ def assemble(tiles: list[str], target: str, workdir: str, compress: str | None) 
 def _evaluate_window(plan: EvaluationPlan, sources: dict[str, SourceSpec], keep: Sequence[str],
                      written: Sequence[str], window, reader) -> tuple[dict, dict]:
     """One window as the engine evaluates it: the written nodes' arrays and every kept node's statistics."""
-    from .engine import read_leaves
-
     results = plan.evaluate_block(read_leaves(plan, sources, reader, window), keep)
     stats = {path: _stats_parts(lin.NodeStatistics.of_block(array, histogram=path in written))
              for path, array in results.items()}

@@ -8,43 +8,46 @@ of threads (GDAL and numpy release the GIL, so both cores work), writes the
 favourability and any node rasters to temporary files, and only on success
 renames them, writes their styles and the lineage record.
 
-:func:`reproduce` evaluates a lineage's tree again and compares every cell.
+What an evaluation reads is prepared in :mod:`.tree_inputs`; :func:`reproduce`
+(:mod:`.reproduce`) evaluates a lineage's tree again and compares every cell.
+Their public names are importable from here too, as callers have always
+imported them.
 """
 
 from __future__ import annotations
 
 import os
-import platform
-import shutil
-import tempfile
-import threading
 from dataclasses import dataclass, field
 
-import numpy as np
-from osgeo import gdal
-
-from .. import about
 from ..core import lineage as lin
 from ..core.errors import (
-    GridError,
-    GridMismatchError,
-    InputError,
-    LineageError,
-    MissingInputError,
     NodataWarning,
 )
-from ..core.feedback import Feedback, ScaledFeedback
-from ..core.tree import PATH_SEPARATOR, EvaluationPlan, Tree
-from .blocks import BLOCK_COLS, BLOCK_ROWS, count_windows, iter_windows
+from ..core.feedback import Feedback
+from ..core.tree import EvaluationPlan, Tree
 from .cluster import Cluster, connect, evaluate_on_cluster
-from .gdalenv import gdal_job, set_stream_cache
+from .gdalenv import gdal_job
 from .grid import Grid
 from .outputs import OutputJob, check_apart, stage_lineage
-from .sources import BlockReader, SourceSpec, cache_need, open_raster, raster_source
+from .reproduce import TREE_JOBS, Reproduction, compare_rasters, reproduce
+from .sources import SourceSpec
 from .streaming import DEFAULT_THREADS, map_windows
 from .style import membership_style, style_path
-from .vector import vector_source
+from .tree_inputs import (
+    PreparedInputs,
+    base_record,
+    input_files,
+    job_inputs,
+    node_file_name,
+    prepare_inputs,
+    read_leaves,
+    reference_grid,
+)
 from .writer import RasterWriter, annotate_file, check_raster_name, compression_options
+
+__all__ = ["TREE_JOBS", "EvaluationResult", "PreparedInputs", "Reproduction", "base_record",
+           "compare_rasters", "evaluate_tree", "evaluate_tree_file", "input_files", "job_inputs",
+           "node_file_name", "prepare_inputs", "read_leaves", "reference_grid", "reproduce"]
 
 
 @dataclass
@@ -56,93 +59,6 @@ class EvaluationResult:
     lineage_file: str
     lineage: dict
     warnings: list[dict] = field(default_factory=list)
-
-
-def reference_grid(tree: Tree) -> tuple[Grid, dict]:
-    """Return the tree's reference grid and a lineage note saying where it came from.
-
-    The grid is ``grid.reference`` (a raster), or ``grid.crs`` + ``grid.extent``
-    + ``grid.cell_size``, or else the grid of the first raster proxy.
-    """
-    spec = tree.grid or {}
-    if "reference" in spec:
-        path = str(tree.resolve(spec["reference"]))
-        ds = open_raster(path, "grid reference")
-        return Grid.from_dataset(ds, f"grid reference {path}"), {"source": "reference", "path": path}
-    if spec:
-        grid = Grid.from_spec(spec["crs"], spec["extent"], spec["cell_size"])
-        return grid, {"source": "tree file", "crs": spec["crs"], "extent": spec["extent"],
-                      "cell_size": spec["cell_size"]}
-    for node_path, node in tree.walk():
-        if node.is_leaf and node.proxy is not None and not node.proxy.is_vector:
-            path = str(node.proxy.resolve(tree.base_dir))
-            ds = open_raster(path, node_path)
-            return (Grid.from_dataset(ds, f"{node_path}: the layer {path}"),
-                    {"source": "first raster proxy", "node": node_path, "path": path})
-    raise GridError("the tree has no raster proxy to take a grid from; add 'grid' with "
-                    "'reference' or 'crs', 'extent' and 'cell_size' to the tree file")
-
-
-def node_file_name(path: str) -> str:
-    """Return a file name for a node's raster from its path (``source``, ``source-faults``)."""
-    parts = path.split(PATH_SEPARATOR)[1:] or path.split(PATH_SEPARATOR)
-    slug = "-".join("".join(ch if ch.isalnum() else "_" for ch in part.lower()).strip("_")
-                    for part in parts)
-    while "__" in slug:
-        slug = slug.replace("__", "_")
-    return (slug or "node") + ".tif"
-
-
-def _prepare_sources(tree: Tree, plan: EvaluationPlan, grid: Grid, workdir: str,
-                     feedback: Feedback, span: tuple[float, float]) -> dict[str, SourceSpec]:
-    """Open and align every leaf's proxy; vector proxies are measured onto the grid."""
-    sources: dict[str, SourceSpec] = {}
-    vectors = [leaf for leaf in plan.leaves if leaf.proxy.is_vector]
-    step = (span[1] - span[0]) / max(1, len(vectors))
-    done = 0
-    for leaf in plan.leaves:
-        feedback.check_cancelled()
-        proxy = leaf.proxy
-        path = str(proxy.resolve(tree.base_dir))
-        if proxy.is_vector:
-            start = span[0] + done * step
-            sources[leaf.path] = vector_source(path, proxy.layer, proxy.measure, proxy.field, grid,
-                                               workdir, leaf.path, feedback, (start, start + step),
-                                               where=proxy.where, margin=proxy.margin)
-            done += 1
-        else:
-            resampling = proxy.resampling or ("nearest" if leaf.membership.categorical else "bilinear")
-            sources[leaf.path] = raster_source(path, proxy.band or 1, grid, resampling, leaf.path,
-                                               feedback, workdir)
-        feedback.set_progress(span[0] + done * step)
-    return sources
-
-
-def input_files(path: str, vector: bool) -> list[str]:
-    """Return the files GDAL reads for an input, without statistics and overview sidecars."""
-    try:
-        ds = gdal.OpenEx(path, gdal.OF_READONLY | (gdal.OF_VECTOR if vector else gdal.OF_RASTER))
-        files = ds.GetFileList() or [path]
-    except RuntimeError:
-        files = [path]
-    return lin.relevant_files(files)
-
-
-class _Hasher(threading.Thread):
-    """Computes SHA-256 of the input files while the blocks stream."""
-
-    def __init__(self, files: list[str]) -> None:
-        super().__init__(daemon=True, name="favour-hash")
-        self.files = files
-        self.result: dict[str, dict] = {}
-        self.error: BaseException | None = None
-
-    def run(self) -> None:
-        try:
-            for entry in lin.describe_files(self.files):
-                self.result[entry["path"]] = entry
-        except OSError as exc:  # a file vanished mid-run; reported in the lineage check
-            self.error = exc
 
 
 def evaluate_tree(tree: Tree, output: str, node_folder: str | None = None,
@@ -241,142 +157,6 @@ def _planned_outputs(output: str, node_outputs: dict[str, str]) -> list[tuple[st
     return planned
 
 
-def job_inputs(tree: Tree, plan: EvaluationPlan, tree_file: str | None = None,
-               grid: Grid | None = None) -> list[tuple[str, str]]:
-    """Return (label, path) of every file an evaluation reads: tree file, grid reference, proxies.
-
-    A proxy stands for every file GDAL opens for it (a shapefile's .shp,
-    .shx, .dbf and .prj, say). Files that do not exist are left out: they
-    fail later with a message of their own.
-    """
-    found = []
-    if tree_file:
-        found.append(("the tree file", os.path.abspath(tree_file)))
-    spec = tree.grid or {}
-    if grid is None and "reference" in spec:
-        found.append(("the grid reference", str(tree.resolve(spec["reference"]))))
-    for leaf in plan.leaves:
-        path = str(leaf.proxy.resolve(tree.base_dir))
-        for f in input_files(path, leaf.proxy.is_vector) or [path]:
-            found.append((f"the layer of {leaf.path}", f))
-    return found
-
-
-@dataclass
-class PreparedInputs:
-    """What a streamed job over a tree's proxies needs before its first block.
-
-    ``sources`` maps each leaf path to how it is read on ``grid``;
-    ``leaf_files`` to the files GDAL reads for it; the ``hasher`` is already
-    computing their checksums in the background (:meth:`checksums` waits).
-    """
-
-    grid: Grid
-    grid_note: dict
-    sources: dict[str, SourceSpec]
-    leaf_files: dict[str, list[str]]
-    cache_bytes: int
-    hasher: _Hasher
-
-    def checksums(self) -> dict[str, dict]:
-        """Wait for the input checksums and return them by path.
-
-        Raises
-        ------
-        MissingInputError
-            An input file could not be read while hashing it.
-        """
-        self.hasher.join()
-        if self.hasher.error is not None:
-            raise MissingInputError(f"an input file could not be read while hashing it: {self.hasher.error}")
-        return self.hasher.result
-
-
-def prepare_inputs(tree: Tree, plan: EvaluationPlan, grid: Grid | None, workdir: str,
-                   feedback: Feedback, tree_file: str | None = None, max_cells: int | None = None,
-                   span: tuple[float, float] = (0.0, 0.15)) -> PreparedInputs:
-    """Build the grid, align every leaf's proxy to it and start hashing the inputs.
-
-    ``grid`` overrides the tree's grid; ``max_cells`` coarsens it for a
-    quick look. Run inside :func:`~.gdalenv.gdal_job`.
-    """
-    if grid is None:
-        grid, grid_note = reference_grid(tree)
-    else:
-        grid_note = {"source": "given by the caller"}
-    if max_cells and grid.cells > max_cells:
-        coarse = grid.coarsened(max_cells)
-        grid_note["coarsened"] = {"from": grid.to_dict(), "factor": round(coarse.cell_x / grid.cell_x),
-                                  "max_cells": max_cells}
-        feedback.info(f"quick look: cells {round(coarse.cell_x / grid.cell_x)} times larger on each side")
-        grid = coarse
-    feedback.info(f"grid: {grid.describe()}")
-    sources = _prepare_sources(tree, plan, grid, workdir, feedback, span)
-    unique = {spec.key: spec for spec in sources.values()}.values()
-    cache_bytes = set_stream_cache(sum(cache_need(spec.record) for spec in unique))
-    files = []
-    if tree_file:
-        files.append(os.path.abspath(tree_file))
-    if grid_note.get("source") == "reference":
-        files.append(grid_note["path"])
-    leaf_files = {}
-    for leaf in plan.leaves:
-        path = str(leaf.proxy.resolve(tree.base_dir))
-        leaf_files[leaf.path] = input_files(path, sources[leaf.path].record["kind"] == "vector")
-        files.extend(leaf_files[leaf.path])
-    hasher = _Hasher(list(dict.fromkeys(files)))
-    hasher.start()
-    return PreparedInputs(grid, grid_note, sources, leaf_files, cache_bytes, hasher)
-
-
-def read_leaves(plan: EvaluationPlan, sources: dict[str, SourceSpec], reader: BlockReader,
-                window) -> dict[str, np.ndarray]:
-    """Read every leaf's proxy on ``window``; leaves sharing a layer read it once.
-
-    Raises
-    ------
-    InputError
-        A block could not be read; the message starts with the leaf's path.
-    """
-    by_key: dict[str, np.ndarray] = {}
-    values = {}
-    for leaf in plan.leaves:
-        spec = sources[leaf.path]
-        if spec.key not in by_key:
-            try:
-                by_key[spec.key] = reader.read(spec, window)
-            except InputError as exc:
-                raise InputError(f"{leaf.path}: {exc}") from None
-        values[leaf.path] = by_key[spec.key]
-    return values
-
-
-def base_record(job: str, created: str, tree: Tree, plan: EvaluationPlan, prepared: PreparedInputs,
-                tree_file: str | None, threads: int) -> dict:
-    """Return the lineage fields every tree job shares: tool, tree, grid, inputs and checksums."""
-    checksums = prepared.checksums()
-    return {
-        "format": lin.FORMAT, "version": lin.VERSION, "job": job, "created": created,
-        "tool": {"name": about.NAME, "version": about.VERSION, "python": platform.python_version(),
-                 "numpy": np.__version__, "gdal": gdal.__version__},
-        "host": platform.platform(),
-        "tree": tree.to_dict(), "base_dir": str(tree.base_dir) if tree.base_dir else None,
-        "tree_file": checksums.get(os.path.abspath(tree_file)) if tree_file else None,
-        "root": plan.root_path,
-        "grid": {**prepared.grid.to_dict(), "from": prepared.grid_note},
-        "inputs": [{"node": leaf.path, **prepared.sources[leaf.path].record,
-                    "files": [checksums[f] for f in prepared.leaf_files[leaf.path]]}
-                   for leaf in plan.leaves],
-        "parameters": {"block": [BLOCK_ROWS, BLOCK_COLS], "threads": threads,
-                       "gdal_cache_bytes": prepared.cache_bytes,
-                       "dtype": "float32", "nodata_value": -9999.0,
-                       "arithmetic": "float64 within each block"},
-        "nodata_policy": {step.path: step.operator.nodata for step in plan.steps},
-        "seed": None,
-        "caution": lin.CAUTION,
-    }
-
-
 def _evaluate(tree, plan, output, node_outputs, feedback, grid, threads, job, tree_file,
               workdir, outputs, max_cells, compress=None, cluster=None) -> EvaluationResult:
     """Body of :func:`evaluate_tree`, run inside the GDAL job settings."""
@@ -464,126 +244,3 @@ def evaluate_tree_file(tree_file: str, output: str, node_folder: str | None = No
     tree = Tree.load(tree_file)
     return evaluate_tree(tree, output, node_folder, feedback, threads=threads, tree_file=tree_file,
                          max_cells=max_cells, compress=compress, cluster=cluster)
-
-
-#: Jobs whose output is one tree evaluated on a grid, which :func:`reproduce` can run again.
-TREE_JOBS = ("evaluate-tree", "membership", "distance-membership", "combine")
-
-
-@dataclass
-class Reproduction:
-    """The outcome of evaluating a lineage's tree again and comparing every cell."""
-
-    output: str
-    identical: bool
-    cells: int
-    differing_cells: int
-    nodata_mismatches: int
-    max_abs_difference: float
-    changed_inputs: list[dict]
-    rebuilt: bool = False
-
-    def summary(self) -> str:
-        """Return a few lines saying whether the cells are identical and what changed."""
-        lines = []
-        if self.rebuilt:
-            lines.append(f"{self.output} was missing; rebuilt it from its lineage")
-        elif self.identical:
-            lines.append(f"identical: all {self.cells} cells of {self.output} are reproduced exactly")
-        else:
-            lines.append(
-                f"different: {self.differing_cells} of {self.cells} cells differ "
-                f"(largest difference {self.max_abs_difference:.6g}, "
-                f"{self.nodata_mismatches} differ in nodata)")
-        for change in self.changed_inputs:
-            what = "is missing" if change["change"] == "missing" else "has changed since the run"
-            lines.append(f"input {change['path']} ({change['node'] or 'tree file'}) {what}")
-        if not self.changed_inputs:
-            lines.append("every input file has the size and SHA-256 recorded in the lineage")
-        return "\n".join(lines)
-
-
-def reproduce(output: str, feedback: Feedback | None = None, threads: int | None = None
-              ) -> Reproduction:
-    """Evaluate the tree recorded in ``output``'s lineage again and compare every cell.
-
-    Inputs whose size or SHA-256 differ from the lineage are named. If the
-    output itself is missing it is rebuilt from the lineage.
-
-    Raises
-    ------
-    LineageError
-        No lineage, or one that cannot be read.
-    FavourError
-        The evaluation itself failed (a missing input, say).
-    """
-    feedback = feedback or Feedback()
-    output = os.path.abspath(output)
-    record = lin.read_lineage(output)
-    if record["job"] not in TREE_JOBS:
-        raise LineageError(f"{output} comes from a {record['job']!r} job; reproduce evaluates the tree of "
-                           f"a tree evaluation again ({', '.join(TREE_JOBS)}), so run that job again instead")
-    changes = lin.changed_inputs(record)
-    tree_doc = record.get("tree")
-    if not isinstance(tree_doc, dict) or not isinstance(record.get("grid"), dict):
-        raise LineageError(f"the lineage of {output} holds no tree or no grid")
-    tree = Tree.from_dict(tree_doc, base_dir=record.get("base_dir"))
-    grid = Grid.from_dict(record["grid"])
-    if record.get("tree_file"):
-        tree_path = record["tree_file"]["path"]
-        if not os.path.isfile(tree_path) or lin.file_digest(tree_path) != record["tree_file"]["sha256"]:
-            feedback.info(f"the tree file {tree_path} has changed since the run; "
-                          "the lineage's own copy of the tree is used")
-    if not os.path.exists(output):
-        evaluate_tree(tree, output, None, feedback, grid=grid, threads=threads, job=record["job"])
-        return Reproduction(output, False, grid.cells, 0, 0, 0.0, changes, rebuilt=True)
-    folder = tempfile.mkdtemp(prefix=".favour-reproduce-", dir=os.path.dirname(output))
-    try:
-        again = os.path.join(folder, "again.tif")
-        evaluate_tree(tree, again, None, ScaledFeedback(feedback, 0.0, 0.9), grid=grid,
-                      threads=threads, job=record["job"])
-        with gdal_job():
-            comparison = compare_rasters(output, again, feedback)
-    finally:
-        shutil.rmtree(folder, ignore_errors=True)
-    feedback.set_progress(1.0)
-    return Reproduction(output, comparison["differing_cells"] == 0, comparison["cells"],
-                        comparison["differing_cells"], comparison["nodata_mismatches"],
-                        comparison["max_abs_difference"], changes)
-
-
-def compare_rasters(first: str, second: str, feedback: Feedback | None = None) -> dict:
-    """Compare two single-band rasters on the same grid cell by cell, block by block.
-
-    Returns
-    -------
-    dict
-        ``cells``, ``differing_cells`` (value or nodata differs),
-        ``nodata_mismatches`` and ``max_abs_difference`` over cells valid in both.
-    """
-    feedback = feedback or Feedback()
-    a_ds, b_ds = open_raster(first, "first raster"), open_raster(second, "second raster")
-    a_grid = Grid.from_dataset(a_ds, first)
-    if not a_grid.same_as(Grid.from_dataset(b_ds, second)):
-        raise GridMismatchError(f"{first} and {second} are on different grids")
-    a_spec = SourceSpec("a", first, 1, a_ds.GetRasterBand(1).GetNoDataValue(), 1.0, 0.0, {})
-    b_spec = SourceSpec("b", second, 1, b_ds.GetRasterBand(1).GetNoDataValue(), 1.0, 0.0, {})
-    a_ds = b_ds = None
-    reader = BlockReader()
-    differing = mismatched = 0
-    largest = 0.0
-    total = count_windows(a_grid.width, a_grid.height)
-    for i, window in enumerate(iter_windows(a_grid.width, a_grid.height)):
-        feedback.check_cancelled()
-        a = reader.read(a_spec, window)
-        b = reader.read(b_spec, window)
-        a_nan, b_nan = np.isnan(a), np.isnan(b)
-        both = ~a_nan & ~b_nan
-        mismatched += int(np.count_nonzero(a_nan != b_nan))
-        diff = np.abs(a[both] - b[both])
-        differing += int(np.count_nonzero(diff)) + int(np.count_nonzero(a_nan != b_nan))
-        if diff.size:
-            largest = max(largest, float(diff.max()))
-        feedback.set_progress(0.9 + 0.1 * (i + 1) / total)
-    return {"cells": a_grid.cells, "differing_cells": differing, "nodata_mismatches": mismatched,
-            "max_abs_difference": largest}

@@ -41,13 +41,13 @@ from ..core.uncertainty import MODES, sample_values, sensitivity_variants
 from ..core.workshop import STATISTICS, check_expert_weights
 from .blocks import Window, iter_windows
 from .cluster import assemble, connect, run_bands, run_items
-from .engine import PreparedInputs, base_record, job_inputs, prepare_inputs, read_leaves
 from .evidence import DepositCells, deposit_cells
 from .gdalenv import gdal_job
 from .grid import Grid
 from .outputs import OutputJob, check_apart, stage_lineage
 from .streaming import DEFAULT_THREADS, map_windows
 from .style import membership_style, style_path
+from .tree_inputs import PreparedInputs, base_record, input_files, job_inputs, prepare_inputs, read_leaves
 from .writer import RasterWriter, annotate_file, check_raster_name, compression_options
 
 #: The rasters a Monte Carlo writes, and what each holds.
@@ -449,7 +449,6 @@ def sensitivity(tree: Tree, output_table: str, output_chart: str | None = None, 
     read = job_inputs(tree, base, tree_file)
     with gdal_job():
         if deposits:
-            from .engine import input_files
             read += [("the deposits", f) for f in input_files(deposits, True) or [deposits]]
         check_apart(planned, read)
     with OutputJob(finals) as run, gdal_job():

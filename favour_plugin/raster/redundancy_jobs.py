@@ -24,10 +24,10 @@ from ..core.errors import InputError, ParameterError
 from ..core.feedback import Feedback
 from ..core.tree import Tree
 from .blocks import Window
-from .engine import base_record, job_inputs, prepare_inputs, read_leaves
 from .gdalenv import gdal_job
 from .outputs import OutputJob, check_apart
 from .streaming import DEFAULT_THREADS, map_windows
+from .tree_inputs import base_record, job_inputs, prepare_inputs, read_leaves
 from .validation_jobs import check_output, csv_text, json_text, planned_outputs, stage_outputs
 
 RESULT_FORMAT = "favour-redundancy"

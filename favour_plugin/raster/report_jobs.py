@@ -32,11 +32,11 @@ from ..report.figures import MapLayer, Overlay, main_map, panel_maps
 from ..report.html import Figure, page
 from ..report.tree_figures import membership_curves, tree_diagram
 from ..report.validation_result import read_validation
-from .engine import input_files
 from .gdalenv import gdal_job
 from .outputs import OutputJob, check_apart, stage_lineage
 from .sources import open_raster
 from .target_inputs import component_inputs, open_on_grid, read_points
+from .tree_inputs import input_files
 
 #: Longest side, in cells, of the decimated read of the main map and of each panel.
 MAIN_CELLS, PANEL_CELLS = 900, 320

@@ -25,7 +25,6 @@ from ..core import lineage as lin
 from ..core import targets as tg
 from ..core.errors import GridError, InputError, LineageError, OutputError, ParameterError
 from ..core.feedback import Feedback
-from .engine import input_files
 from .gdalenv import gdal_job
 from .grid import Grid, crs_label
 from .outputs import OutputJob, check_apart, stage_lineage
@@ -43,6 +42,7 @@ from .target_zones import (
     write_targets,
     zone_geometries,
 )
+from .tree_inputs import input_files
 
 #: Zones whose rows the lineage repeats (the GeoPackage holds every zone).
 LINEAGE_ROWS = 1000

@@ -38,13 +38,13 @@ from ..core.errors import InputError, MissingInputError, NodataWarning, OutputEr
 from ..core.feedback import Feedback
 from ..core.validation_counts import RankCounts, count_block, prediction_area_table, threshold_at_area
 from .blocks import BLOCK_COLS, BLOCK_ROWS, Window
-from .engine import input_files
 from .evidence import DepositCells, deposit_cells
 from .gdalenv import gdal_job, set_stream_cache
 from .grid import Grid
 from .outputs import OutputJob, OutputSet, check_apart, stage_lineage
 from .sources import SourceSpec, cache_need, open_raster, raster_source
 from .streaming import map_windows
+from .tree_inputs import input_files
 
 #: Cells one small read around deposit cells covers at most (a tile of the writer's).
 _TILE = 256

@@ -12,9 +12,9 @@ from ... import about
 from ...core import lineage as lin
 from ...core.errors import OutputError
 from ...core.feedback import Feedback
-from ..engine import input_files
 from ..grid import Grid
 from ..sources import SourceSpec
+from ..tree_inputs import input_files
 from ..writer import compression_options
 
 
