@@ -482,7 +482,7 @@ def test_pairwise_needs_a_node_with_two_criteria_under_it(dock):
 
 def test_the_workshop_is_a_tab_that_fits_the_dock(dock):
     """The tree editor and the workshop are two tabs; the workshop fits a 600 px dock."""
-    assert [dock.tabs.tabText(k) for k in range(dock.tabs.count())] == ["Tree", "Workshop"]
+    assert [dock.tabs.tabText(k) for k in range(dock.tabs.count())] == ["Tree", "Workshop", "Results"]
     dock.tabs.setCurrentIndex(1)
     assert dock.workshop.minimumSizeHint().width() <= 600
 

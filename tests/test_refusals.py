@@ -68,6 +68,7 @@ from favour_plugin.core.workshop import check_expert_weights
 from favour_plugin.raster.engine import evaluate_tree, evaluate_tree_file, reproduce
 from favour_plugin.raster.ensemble_jobs import MC_OUTPUTS, monte_carlo, sensitivity
 from favour_plugin.raster.holdout_jobs import holdouts
+from favour_plugin.raster.probe import Probe
 from favour_plugin.raster.redundancy_jobs import redundancy
 from favour_plugin.raster.report_jobs import write_report
 from favour_plugin.raster.target_jobs import find_targets
@@ -277,6 +278,8 @@ RULE_TARGETS_INPUTS = ("Component or robustness rasters on another grid than the
 RULE_TARGETS_REQUEST = ("Targets asked for with a top area outside 0–100 %, both a threshold and a "
                         "validation result, a negative minimum area or merge distance, or an output that is "
                         "not a .gpkg file or is named after the favourability.")
+RULE_WHY_HERE = ("Why here? asked at a point outside the model's grid, or at a point in a CRS with no "
+                 "way to the grid's.")
 RULE_REPORT = ("A report asked for with an output that is not an .html file, a chart that is not a PNG "
                "image, a sensitivity table without the sensitivity job's columns, or a posterior that is "
                "not a posterior's lineage.")
@@ -1659,3 +1662,24 @@ def test_a_full_disk_leaves_the_earlier_output(small_disk, tmp_path):
     assert "Traceback" not in result.stderr
     assert earlier.read_bytes() == b"the user's earlier map"
     assert sorted(os.listdir(small_disk)) == ["fav.tif"]
+
+
+# -- Why here? -----------------------------------------------------------------------------------
+
+
+def _probe_at(x: float, y: float, crs: str = "") -> Callable:
+    """A case: the scene's tree asked why at (x, y); the probe's work folder goes in the scene."""
+    def make(scene: Scene):
+        probe, tree = Probe(scene.folder("probe")), scene.tree()
+        return lambda: probe.value_at(tree, x, y, crs)
+    return make
+
+
+CASES += [
+    Case("why here: a point outside the grid", RULE_WHY_HERE, "core", _probe_at(-1e7, -1e7), GridError,
+         r"the point \(-10000000, -10000000\) in .* lies outside the model's grid, which covers x .*"
+         r"pick a place inside the grid"),
+    Case("why here: a point in a CRS with no way to the grid's", RULE_WHY_HERE, "core",
+         _probe_at(10.0, 10.0, LOCAL_GRID), GridError,
+         r"the point \(10, 10\) in site grid cannot be turned into the grid's CRS"),
+]

@@ -59,6 +59,10 @@ class DockActions:
         self.down = make("move-down", tr("Move down"), tr("Move the node down among its siblings"))
         self.pairwise = make("pairwise", tr("Pairwise weights…"),
                              tr("Weigh the criteria under the selected node by comparing them two at a time"))
+        self.why_here = make("why-here", tr("Why here?"),
+                             tr("Click a cell on the map to see every node's value there, read from the "
+                                "layers through the model"))
+        self.why_here.setCheckable(True)
 
     def toolbar(self, parent) -> QToolBar:
         """Return a toolbar holding the actions in their groups."""
@@ -66,7 +70,7 @@ class DockActions:
         bar.setIconSize(bar.iconSize() * 0.75)
         for group in ((self.new, self.open, self.save), (self.undo, self.redo),
                       (self.add_component, self.add_group, self.add_criterion, self.add_layer),
-                      (self.remove, self.up, self.down), (self.pairwise,)):
+                      (self.remove, self.up, self.down), (self.pairwise, self.why_here)):
             for action in group:
                 bar.addAction(action)
             bar.addSeparator()

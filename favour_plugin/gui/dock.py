@@ -3,8 +3,14 @@
 The dock assembles the views and connects them to the
 :class:`~.controller.TreeController`; it computes nothing. Checks, samples and
 runs go to QGIS tasks, so the interface stays responsive. Its public methods
-(:meth:`FavourDock.add_layer`, :meth:`FavourDock.run`, …) are what the
-toolbar, drag and drop, scripts and tests use alike.
+(:meth:`FavourDock.add_layer`, :meth:`FavourDock.run`,
+:meth:`FavourDock.why_here`, …) are what the toolbar, drag and drop, the map
+tool, scripts and tests use alike.
+
+Three tabs: *Tree* (the editor), *Workshop* (score sheets, Monte Carlo,
+sensitivity) and *Results* (validation, targets and the report, taking the
+last full run and the last uncertainty runs). *Why here?* on the toolbar
+turns the map into a probe: a click shows every node's value at that cell.
 """
 
 from __future__ import annotations
@@ -32,6 +38,7 @@ from ..core.tree import PATH_SEPARATOR, Proxy
 from .actions import DockActions
 from .common import icon, notify, tr
 from .defaults import starting_for_proxy
+from .handover_view import HandoverView
 from .histogram import SampleService
 from .layers import UnusableLayerError, dropped_layers, layer_value_range, proxy_from_layer
 from .node_editor import NodeEditor
@@ -42,6 +49,7 @@ from .results import add_results
 from .run_bar import RunBar
 from .run_job import RunJob, remove_empty_folders, run_folder
 from .tree_view import CriteriaTreeView, drop_destination
+from .why_here import WhyHere, WhyHerePanel, WhyHereTool
 from .workshop_view import WorkshopView
 
 
@@ -60,6 +68,10 @@ class FavourDock(QgsDockWidget):
         self.last_layers: list = []
         self.pairwise: PairwiseDialog | None = None
         self._quick_again = False
+        self.why = WhyHere(self)
+        self.why_panel: WhyHerePanel | None = None
+        self.why_tool: WhyHereTool | None = None
+        self.last_answer = None
         self.samples = SampleService(self)
         self.checker = ProblemChecker(controller, self.project, self)
         self.actions = DockActions(self, controller.undo_stack)
@@ -106,6 +118,11 @@ class FavourDock(QgsDockWidget):
         self.workshop_scroll.setWidgetResizable(True)
         self.workshop_scroll.setWidget(self.workshop)
         self.tabs.addTab(self.workshop_scroll, icon("workshop"), tr("Workshop"))
+        self.handover = HandoverView(self.controller, self.iface, self.project, self.next_folder)
+        self.handover_scroll = QScrollArea()
+        self.handover_scroll.setWidgetResizable(True)
+        self.handover_scroll.setWidget(self.handover)
+        self.tabs.addTab(self.handover_scroll, icon("results"), tr("Results"))
         self.pages.addWidget(self.tabs)
         layout.addWidget(self.pages, 1)
         self.run_bar = RunBar()
@@ -129,6 +146,18 @@ class FavourDock(QgsDockWidget):
         a.up.triggered.connect(lambda: self._move_selected(-1))
         a.down.triggered.connect(lambda: self._move_selected(1))
         a.pairwise.triggered.connect(lambda: self.open_pairwise())
+        a.why_here.toggled.connect(self._why_tool_toggled)
+        self.why.answered.connect(self._why_answered)
+        self.why.failed.connect(self._why_failed)
+        self.why.progress_changed.connect(lambda percent: self.why_panel is not None
+                                          and self.why_panel.set_progress(percent))
+        canvas = self._canvas()
+        if canvas is not None:
+            self.why_tool = WhyHereTool(canvas)
+            self.why_tool.clicked.connect(lambda x, y, wkt: self.why_here(x, y, wkt))
+            self.why_tool.deactivated.connect(self._why_tool_deactivated)
+        self.run_finished.connect(self.handover.set_last_run)
+        self.workshop.uncertainty.finished.connect(self.handover.set_uncertainty)
         self.workshop.pairwise_requested.connect(lambda: self.open_pairwise())
         self.workshop.quick_look_requested.connect(self.request_quick_look)
         c.changed.connect(self.refresh)
@@ -158,6 +187,13 @@ class FavourDock(QgsDockWidget):
         self.editor.proxy_fields.choices.forget()
         self.editor.membership_panel.classes.forget()
         self.workshop.shutdown()
+        self.handover.shutdown()
+        self.why.shutdown()
+        canvas = self._canvas()
+        if self.why_tool is not None and canvas is not None and canvas.mapTool() is self.why_tool:
+            canvas.unsetMapTool(self.why_tool)
+        if self.why_panel is not None:
+            self.why_panel.close()
         self._quick_again = False
         if self.job is not None and self.job.running:
             self.job.finished.disconnect(self._run_finished)
@@ -178,12 +214,16 @@ class FavourDock(QgsDockWidget):
         tree = self.controller.tree
         if tree is None and self.job is not None and self.job.running:
             self.job.cancel()  # the project was closed: its results have nowhere to go
+        if tree is None:
+            self.why.release()  # the prepared inputs belong to a model that is gone
+            self.actions.why_here.setChecked(False)
         self.pages.setCurrentIndex(0 if tree is None else 1)
         for action in (self.actions.save, self.actions.save_as, self.actions.add_criterion,
                        self.actions.add_group, self.actions.add_component, self.actions.add_layer,
-                       self.actions.remove, self.actions.up, self.actions.down):
+                       self.actions.remove, self.actions.up, self.actions.down, self.actions.why_here):
             action.setEnabled(tree is not None)
         self.workshop.tree_changed()
+        self.handover.refresh()
         self.tree_view.show_tree(tree, self.checker.by_node())
         if tree is not None and not self.tree_view.selected_path():
             self.tree_view.select_path(tree.root.name)
@@ -433,6 +473,86 @@ class FavourDock(QgsDockWidget):
         finally:
             stack.endMacro()
         return done
+
+    # -- why here? --------------------------------------------------------------------------
+
+    def _canvas(self):
+        """Return QGIS's map canvas, or None without an interface (qgis_process, scripts)."""
+        get = getattr(self.iface, "mapCanvas", None) if self.iface is not None else None
+        return get() if get is not None else None
+
+    def _why_tool_toggled(self, on: bool) -> None:
+        canvas = self._canvas()
+        if self.why_tool is None or canvas is None:
+            if on:
+                self.actions.why_here.setChecked(False)
+            return
+        if on:
+            canvas.setMapTool(self.why_tool)
+            self.why_panel_shown().set_busy(False, tr("Click a cell on the map."))
+        elif canvas.mapTool() is self.why_tool:
+            canvas.unsetMapTool(self.why_tool)
+
+    def _why_tool_deactivated(self) -> None:
+        # Another map tool was chosen: the action follows, without setting the tool again.
+        self.actions.why_here.blockSignals(True)
+        self.actions.why_here.setChecked(False)
+        self.actions.why_here.blockSignals(False)
+
+    def why_panel_shown(self) -> WhyHerePanel:
+        """Return the "Why here?" panel, made on first use and shown."""
+        if self.why_panel is None:
+            self.why_panel = WhyHerePanel(self)
+            self.why_panel.cancel_requested.connect(self.why.cancel)
+        self.why_panel.show()
+        self.why_panel.raise_()
+        return self.why_panel
+
+    def why_here(self, x: float, y: float, crs_wkt: str = ""):
+        """Show every node's value at the cell holding the point (x, y) in ``crs_wkt``; return the task.
+
+        What a click with the *Why here?* map tool does. The values are read
+        in the background (:class:`~.why_here.WhyHere`) from the tree as it is
+        now, through the evaluation's own preparation and plan, and shown in
+        the panel; the first question prepares the inputs, with progress and
+        Cancel. Returns None, with a message, when there is no tree, the tree
+        cannot be evaluated, or the results folder (where the prepared inputs
+        are kept) cannot be written; also when the question waits for one
+        being answered (it is answered next).
+        """
+        tree = self.controller.tree
+        if tree is None:
+            notify(self.iface, tr("There is no tree to ask about."), Qgis.Warning)
+            return None
+        errors = [p for p in tree.problems() if p.level == "error"]
+        if errors:
+            text = tr("The tree cannot be evaluated yet: {problems}").format(
+                problems="; ".join(str(p) for p in errors[:3]))
+            notify(self.iface, text, Qgis.Warning, 10)
+            self.why_panel_shown().show_message(text)
+            return None
+        try:
+            parent = ensure_writable(self.next_folder())
+        except OSError as exc:
+            notify(self.iface, tr("Why here? needs a folder to prepare the layers in: {error}").format(
+                error=exc), Qgis.Critical, 0)
+            return None
+        copy = self.controller.run_copy()
+        panel = self.why_panel_shown()
+        if self.why.prepared_for(copy):
+            panel.set_busy(True, tr("Reading the cell…"))
+        else:
+            panel.set_busy(True, tr("Preparing the layers on the model's grid (once; later clicks reuse "
+                                    "them)…"))
+        return self.why.ask(copy, float(x), float(y), crs_wkt or "", parent)
+
+    def _why_answered(self, answer) -> None:
+        self.last_answer = answer
+        self.why_panel_shown().show_answer(answer)
+
+    def _why_failed(self, message: str) -> None:
+        self.last_answer = None
+        self.why_panel_shown().show_message(message)
 
     # -- running --------------------------------------------------------------------------
 

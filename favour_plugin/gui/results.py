@@ -3,7 +3,8 @@
 Runs in the main thread after a :class:`~.run_job.RunJob` succeeded. Layers
 are styled and annotated by the same :class:`~favour_plugin.processing.base.StyleLoader`
 that styles processing outputs. A quick look replaces the previous one. A
-Monte Carlo run from the workshop view adds its rasters as one group.
+Monte Carlo run from the workshop view adds its rasters as one group; the
+targets found from the Results tab join as a styled polygon layer.
 """
 
 from __future__ import annotations
@@ -12,7 +13,7 @@ import datetime as _dt
 import os
 import shutil
 
-from qgis.core import QgsProject, QgsRasterLayer
+from qgis.core import QgsProject, QgsRasterLayer, QgsVectorLayer
 
 from ..core.lineage import read_lineage
 from ..core.tree import PATH_SEPARATOR
@@ -112,6 +113,33 @@ def add_uncertainty_results(outcome, tree_name: str,
         node.setItemVisibilityChecked(i == 0)
         node.setExpanded(False)
     return layers
+
+
+#: The layer the targets job writes in its GeoPackage (raster/target_zones.py LAYER).
+TARGETS_LAYER = "targets"
+
+
+def add_targets_layer(path: str, name: str = "", project: QgsProject | None = None) -> QgsVectorLayer:
+    """Add the targets GeoPackage the targets job wrote, styled with its ``.qml``; return the layer.
+
+    The layer goes on top of the *Favour results* group, with the job's
+    lineage in its metadata (as every Favour result).
+
+    Raises
+    ------
+    RuntimeError
+        QGIS cannot open the GeoPackage's targets layer.
+    """
+    project = project or QgsProject.instance()
+    layer = QgsVectorLayer(f"{path}|layername={TARGETS_LAYER}",
+                           tr("Targets: {name}").format(name=name) if name else tr("Targets"), "ogr")
+    if not layer.isValid():
+        raise RuntimeError(tr("QGIS cannot open the targets {path}").format(path=path))
+    StyleLoader(path).postProcessLayer(layer, None, None)
+    layer.setCustomProperty(RUN_PROPERTY, os.path.dirname(os.path.abspath(path)))
+    project.addMapLayer(layer, False)
+    _group(project).insertLayer(0, layer)
+    return layer
 
 
 def remove_quick_looks(project: QgsProject | None = None) -> None:

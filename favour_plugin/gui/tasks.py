@@ -39,6 +39,9 @@ class FunctionTask(QgsTask):
         try:
             self.result = self.function(*self.args)
         except Exception as exc:  # handed to the main thread, which reports it
+            # Without its traceback: the frames would keep GDAL objects alive in a cycle with this
+            # task, and the collector may free a dataset before its band (a crash in the bindings).
+            exc.__traceback__ = exc.__context__ = exc.__cause__ = None
             self.error = exc
             return False
         return True

@@ -488,18 +488,23 @@ def _distance_grid(path: str, layer_name: str, where_sql: str | None, grid: Grid
                    feedback: Feedback, span: tuple[float, float, float]) -> str:
     """Rasterise the layer's (filtered) features and compute distance to them; return the grid's path."""
     start, mid, end = span
-    burnt = _empty_grid(base + "-features.tif", grid, gdal.GDT_Byte, None)
-    _run(lambda: gdal.Rasterize(burnt, path, layers=[layer_name], where=where_sql, burnValues=[1],
-                                allTouched=True, callback=_progress_callback(feedback, start, mid)),
-         feedback, f"rasterising {path}")
     target = base + "-distance.tif"
-    distance = _empty_grid(target, grid, gdal.GDT_Float32, None)
-    _run(lambda: gdal.ComputeProximity(burnt.GetRasterBand(1), distance.GetRasterBand(1),
-                                       ["VALUES=1", "DISTUNITS=GEO"],
-                                       callback=_progress_callback(feedback, mid, end)),
-         feedback, f"computing distance to {path}")
-    burnt = None
-    distance = None
+    burnt = distance = features = distances = None
+    try:
+        burnt = _empty_grid(base + "-features.tif", grid, gdal.GDT_Byte, None)
+        _run(lambda: gdal.Rasterize(burnt, path, layers=[layer_name], where=where_sql, burnValues=[1],
+                                    allTouched=True, callback=_progress_callback(feedback, start, mid)),
+             feedback, f"rasterising {path}")
+        distance = _empty_grid(target, grid, gdal.GDT_Float32, None)
+        features, distances = burnt.GetRasterBand(1), distance.GetRasterBand(1)
+        _run(lambda: gdal.ComputeProximity(features, distances, ["VALUES=1", "DISTUNITS=GEO"],
+                                           callback=_progress_callback(feedback, mid, end)),
+             feedback, f"computing distance to {path}")
+    finally:
+        # Bands before their datasets, also when an error's traceback keeps this frame alive:
+        # a band outliving its dataset is a use after free in GDAL's bindings.
+        features = distances = None
+        burnt = distance = None
     return target
 
 
