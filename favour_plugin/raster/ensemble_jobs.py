@@ -59,8 +59,12 @@ MC_OUTPUTS = {
     "p90": "90th percentile of favourability over the realisations",
     "robustness": "fraction of realisations in which the cell is in the top area",
 }
-#: Bytes of one strip of the stack of N maps evaluated together.
-STACK_BYTES = 32 * 2**20
+#: Bytes of one strip of the stack of N maps evaluated together. The summaries copy a strip a
+#: few times (each cell's N values side by side, the partial sort, float64 deviations), so a
+#: thread's peak is several times this. Measured with bench_montecarlo.py (200 realisations,
+#: 10⁷ cells, 2 threads): 2 MB 227 s / 329 MB, 4 MB 120 s / 378 MB, 8 MB 87 s / 446 MB,
+#: 16 MB 82 s / 557 MB; smaller strips pay each plan's per-strip overhead more often.
+STACK_BYTES = 8 * 2**20
 #: Cells of one strip: each intermediate map (and each cached one) is at most this many float64.
 STRIP_CELLS = 65536
 #: The pilot samples rows until it holds about this many cells; grids this small are read whole.
