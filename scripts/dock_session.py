@@ -2,7 +2,8 @@
 
 Started by ``scripts/screenshot_dock.py``, which passes the paths in the
 ``FAVOUR_DESKTOP`` environment variable (JSON: ``tree``, ``layers``,
-``screenshot``, ``keep_screenshot``, ``status``, ``timeout``). Steps are
+``screenshot``, ``results_screenshot``, ``keep_screenshot``, ``status``,
+``timeout``). Steps are
 chained on timers so the QGIS event loop keeps running; every step's failure
 is written to the status file, and QGIS quits in every case.
 
@@ -11,11 +12,15 @@ is written to the status file, and QGIS quits in every case.
    and run it with no results folder chosen: the run goes to the default.
 2. Frame the map (the project takes the demo's CRS) and save the dock's
    screenshot.
-3. Make a quick look (temporary), then choose File › New as a user would.
+3. On the Results tab, with the known occurrences as deposits, validate the
+   map, find targets and write the report, one after the other as a user
+   would press the three buttons; save the screenshot of the tab with the
+   targets on the map.
+4. Make a quick look (temporary), then choose File › New as a user would.
    Every dialog that opens is recorded; QGIS's own questions are answered
    (discard, go on), and while Favour's keep question is open the screen is
    saved, then *Keep* is pressed.
-4. Open the tree again, make another quick look and choose Project › Exit;
+5. Open the tree again, make another quick look and choose Project › Exit;
    the keep question is answered *Discard* and QGIS closes.
 
 Project signals and the number of layers at each are recorded, to show
@@ -262,6 +267,58 @@ def screenshot() -> None:
     STATUS["project_crs"] = {"authid": crs.authid(), "description": crs.description()}
     if not iface.mainWindow().grab().save(SETTINGS["screenshot"]):
         raise RuntimeError(f"could not write {SETTINGS['screenshot']}")
+    QTimer.singleShot(200, _step(results_tab))
+
+
+def results_tab() -> None:
+    """Open the Results tab, choose the known occurrences as deposits and press Validate."""
+    from favour_plugin.gui.handover_job import REPORT, TARGETS, VALIDATE
+
+    _PHASE[0] = "results"
+    dock = _DOCK[0]
+    dock.tabs.setCurrentWidget(dock.handover_scroll)
+    view = dock.handover
+    occurrences = QgsProject.instance().mapLayersByName("Known occurrences")
+    if not occurrences:
+        raise RuntimeError("the known occurrences did not load")
+    view.deposits_box.setLayer(occurrences[0])
+    # As the demo does (resources/demo/run_demo.py): zones of at least 0.25 km², merged within 50 m;
+    # with the defaults (0, 0) every speck of one cell in the top 10 % is a zone of its own.
+    view.min_area_box.setValue(0.25)
+    view.merge_box.setValue(50.0)
+    nxt = {VALIDATE: view.run_targets, TARGETS: view.run_report}
+
+    def finished(outcome) -> None:
+        STATUS.setdefault("handover", {})[outcome.algorithm] = {
+            "ok": outcome.ok, "folder": outcome.folder, "message": outcome.message,
+            "status": view.controls(outcome.algorithm).status.text(),
+            "files": {k: v for k, v in outcome.results.items() if isinstance(v, str)}}
+        _write_status()
+        if not outcome.ok:
+            STATUS["error"] = f"the {outcome.algorithm} run failed: {outcome.message}"
+            _quit()
+        elif outcome.algorithm == REPORT:
+            STATUS["figures"] = view.figures.text()
+            QTimer.singleShot(1500, _step(results_screenshot))
+        elif nxt[outcome.algorithm]() is None:
+            STATUS["error"] = f"the dock refused the run after {outcome.algorithm}"
+            _quit()
+
+    _KEEP.append(finished)
+    view.finished.connect(finished)
+    if view.run_validation() is None:
+        raise RuntimeError("the dock refused to validate the demo map")
+
+
+def results_screenshot() -> None:
+    """Save the window with the Results tab and the targets on the map; then make a quick look."""
+    iface.mapCanvas().refresh()
+    iface.mapCanvas().waitWhileRendering()
+    QApplication.processEvents()
+    if not iface.mainWindow().grab().save(SETTINGS["results_screenshot"]):
+        raise RuntimeError(f"could not write {SETTINGS['results_screenshot']}")
+    dock = _DOCK[0]
+    dock.tabs.setCurrentIndex(0)
     QTimer.singleShot(200, _step(quick_look))
 
 

@@ -1,6 +1,7 @@
 """Start QGIS desktop under a virtual display with Favour from this checkout; screenshot the dock on the demo.
 
-``make screenshot`` writes ``help/dock.png`` and ``help/keep-results.png``.
+``make screenshot`` writes ``help/dock.png``, ``help/results-tab.png`` and
+``help/keep-results.png``.
 QGIS runs as a user would start it: ``/usr/bin/qgis`` under ``xvfb-run``, an
 isolated profile (a prepared ``QGIS3.ini`` that enables the plugin, so no
 first-run questions), the plugin found through ``QGIS_PLUGINPATH=<checkout>``,
@@ -112,11 +113,13 @@ def demo_folder(folder: Path, tree_folder: Path) -> Path:
 
 
 def run_desktop(work: Path, screenshot: Path, keep_screenshot: Path | None = None,
-                timeout: int = 150) -> DesktopRun:
+                timeout: int = 240, results_screenshot: Path | None = None) -> DesktopRun:
     """Start QGIS desktop under Xvfb on the demo in ``work``; return what the session left.
 
     ``screenshot`` is the dock after the run; ``keep_screenshot`` (default:
-    ``keep-results.png`` beside it) the question to keep a quick look.
+    ``keep-results.png`` beside it) the question to keep a quick look;
+    ``results_screenshot`` (default: ``results-tab.png`` beside it) the
+    Results tab after validating, finding targets and writing the report.
     """
     work = Path(work).resolve()
     work.mkdir(parents=True, exist_ok=True)
@@ -144,10 +147,12 @@ def run_desktop(work: Path, screenshot: Path, keep_screenshot: Path | None = Non
     screenshot = Path(screenshot).resolve()
     screenshot.parent.mkdir(parents=True, exist_ok=True)
     keep_screenshot = Path(keep_screenshot or screenshot.with_name("keep-results.png")).resolve()
-    for picture in (screenshot, keep_screenshot):
+    results_screenshot = Path(results_screenshot or screenshot.with_name("results-tab.png")).resolve()
+    for picture in (screenshot, keep_screenshot, results_screenshot):
         picture.unlink(missing_ok=True)  # a picture left from an earlier session proves nothing
     settings = {"tree": str(tree_file), "layers": str(home / "Tarrowin" / "layers"),
                 "screenshot": str(screenshot), "keep_screenshot": str(keep_screenshot),
+                "results_screenshot": str(results_screenshot),
                 "status": str(status), "timeout": max(30, timeout - 30)}
     env = {k: v for k, v in os.environ.items() if k != "QT_QPA_PLATFORM"}
     env.update(QGIS_PLUGINPATH=str(ROOT), FAVOUR_DESKTOP=json.dumps(settings), QT_QPA_PLATFORM="xcb",
@@ -174,19 +179,24 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--out", default=str(ROOT / "help" / "dock.png"), help="PNG of the dock to write")
     parser.add_argument("--keep-out", default=str(ROOT / "help" / "keep-results.png"),
                         help="PNG of the question to keep a quick look")
+    parser.add_argument("--results-out", default=str(ROOT / "help" / "results-tab.png"),
+                        help="PNG of the Results tab after validation, targets and the report")
     parser.add_argument("--work", default=str(ROOT / "build" / "screenshot"), help="working folder")
     args = parser.parse_args(argv)
     if not shutil.which("xvfb-run") or not os.path.exists("/usr/bin/qgis"):
         print("screenshot: needs xvfb-run and /usr/bin/qgis (make setup installs them)", file=sys.stderr)
         return 1
-    run = run_desktop(Path(args.work), Path(args.out), Path(args.keep_out))
+    run = run_desktop(Path(args.work), Path(args.out), Path(args.keep_out),
+                      results_screenshot=Path(args.results_out))
     errors = run.python_errors() + run.favour_errors()
-    if run.status.get("error") or errors or not Path(args.out).exists() or not Path(args.keep_out).exists():
+    if run.status.get("error") or errors or not Path(args.out).exists() or not Path(args.keep_out).exists() \
+            or not Path(args.results_out).exists():
         print(f"screenshot: failed (QGIS exit {run.returncode})", file=sys.stderr)
         print(run.status.get("error") or "", file=sys.stderr)
         print("\n".join(errors), file=sys.stderr)
         return 1
-    print(f"wrote {args.out} and {args.keep_out}; QGIS log in {Path(args.work) / 'qgis-log.txt'}")
+    print(f"wrote {args.out}, {args.results_out} and {args.keep_out}; "
+          f"QGIS log in {Path(args.work) / 'qgis-log.txt'}")
     return 0
 
 

@@ -3,7 +3,8 @@
 ``scripts/screenshot_dock.py`` starts ``/usr/bin/qgis`` under ``xvfb-run``
 with an isolated profile that enables the plugin, and HOME and the temporary
 folder inside the test's folder; the session script opens the dock from its
-toolbar action, loads the demo tree, runs it, saves a screenshot, makes a
+toolbar action, loads the demo tree, runs it, saves a screenshot, validates
+the map, finds targets and writes the report from the Results tab, makes a
 quick look, starts a new project (keeping the quick look when asked) and
 exits; QGIS's own message log is recorded from start-up. The check is QGIS
 itself: its log must hold no Python error and QGIS must quit cleanly (which
@@ -13,12 +14,14 @@ unloads the plugin).
 from __future__ import annotations
 
 import importlib.util
+import json
 import os
 import shutil
 import sys
 from pathlib import Path
 
 import pytest
+from osgeo import ogr
 from qgis.PyQt.QtGui import QColor, QImage
 
 from favour_plugin.raster.engine import reproduce
@@ -69,11 +72,13 @@ def test_desktop_opens_the_dock_runs_the_demo_and_logs_no_python_error(tmp_path)
     """
     launcher = _launcher()
     work = tmp_path / "desktop"
-    run = launcher.run_desktop(work, tmp_path / "dock.png", tmp_path / "keep-results.png", timeout=150)
+    run = launcher.run_desktop(work, tmp_path / "dock.png", tmp_path / "keep-results.png", timeout=240,
+                               results_screenshot=tmp_path / "results-tab.png")
     status = run.status
     assert status.get("error") is None, f"{status.get('error')}\n{run.output[-3000:]}"
-    assert status["steps"] == ["open_dock_and_run", "frame_the_map", "screenshot", "quick_look",
-                               "new_project", "quick_look_again", "exit_qgis"]
+    assert status["steps"] == ["open_dock_and_run", "frame_the_map", "screenshot", "results_tab",
+                               "results_screenshot", "quick_look", "new_project", "quick_look_again",
+                               "exit_qgis"]
     assert status["project_file"] == ""  # a new, unsaved project
     assert any("\tPlugins\tLoaded Favour" in line for line in run.log), run.log[:20]
     assert run.python_errors() == []
@@ -119,6 +124,8 @@ def test_desktop_opens_the_dock_runs_the_demo_and_logs_no_python_error(tmp_path)
     exit_signals = [(s["signal"], s["layers"] > 0) for s in status["signals"] if s["phase"] == "exit"]
     assert exit_signals[0] == ("removeAll", True)
 
+    _results_tab_checks(status, documents, tmp_path)
+
     image = QImage(str(tmp_path / "dock.png"))
     assert (image.width(), image.height()) == (1600, 1000)
     # The favourability raster is drawn on the map in the ramp's colours, low to high.
@@ -126,3 +133,28 @@ def test_desktop_opens_the_dock_runs_the_demo_and_logs_no_python_error(tmp_path)
         assert _ramp_pixels(image, colour) > 100, colour
     question = QImage(str(tmp_path / "keep-results.png"))
     assert (question.width(), question.height()) == (1600, 1000)
+
+
+def _results_tab_checks(status: dict, documents: Path, tmp_path: Path) -> None:
+    """The Results tab's three runs, pressed in QGIS desktop: each in a folder of its own, each complete."""
+    runs = status["handover"]
+    assert list(runs) == ["favour:validate", "favour:targets", "favour:report"]
+    for outcome in runs.values():
+        assert outcome["ok"], outcome["message"]
+        assert Path(outcome["folder"]).parent == documents
+        assert all(Path(path).exists() for path in outcome["files"].values())
+    result = json.loads(Path(runs["favour:validate"]["files"]["OUTPUT_JSON"]).read_text(encoding="utf-8"))
+    auc = result["auc"]
+    assert f"AUC {auc:.3f}" in status["figures"]  # the tab shows the file's own numbers
+    # Polygon areas from OGR's own geometry (not ours): every zone at least the smallest area asked.
+    source = ogr.Open(runs["favour:targets"]["files"]["OUTPUT"])
+    layer = source.GetLayer(0)
+    areas = [feature.GetGeometryRef().GetArea() / 1e6 for feature in layer]
+    assert areas and min(areas) >= 0.25 - 1e-9
+    ranks = sorted(feature.GetField("rank") for feature in layer)
+    assert ranks == list(range(1, len(areas) + 1))
+    assert f"{len(areas)} zones at favourability" in runs["favour:targets"]["status"]
+    page = Path(runs["favour:report"]["files"]["OUTPUT"]).read_text(encoding="utf-8")
+    assert "not a resource estimate" in page and page.count("data:image/png;base64,") >= 4
+    picture = QImage(str(tmp_path / "results-tab.png"))
+    assert (picture.width(), picture.height()) == (1600, 1000)
