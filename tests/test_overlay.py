@@ -115,3 +115,22 @@ def test_weighted_mean_ignore_renormalises_weights():
     np.testing.assert_allclose(o.weighted_mean(children, [1, 3], "propagate"), [0.875, NAN])
 
 
+@settings(max_examples=200, deadline=None)
+@given(children_strategy(), unit, st.lists(st.floats(0.0, 10.0), min_size=6, max_size=6),
+       st.sampled_from(["and", "or", "product", "sum", "gamma", "weighted_mean"]))
+def test_a_cell_under_ignore_does_not_depend_on_missing_cells_elsewhere(children, gamma, weights, kind):
+    """Under ``ignore`` a cell's μ depends only on that cell's children (property that must hold).
+
+    A block with no missing cell takes a shorter path than one with any; the
+    cells both share must come out identical, to the last bit.
+    """
+    weights = weights[:len(children)]
+    if sum(weights) <= 0:
+        weights[0] = 1.0
+    spec = {"type": kind, "nodata": "ignore", **({"gamma": gamma} if kind == "gamma" else {})}
+    op = o.parse_operator(spec)
+    whole = op.combine(children, weights)
+    with_gap = [np.append(child, NAN if i == 0 else 0.5) for i, child in enumerate(children)]
+    assert np.array_equal(op.combine(with_gap, weights)[:-1], whole)
+
+

@@ -53,6 +53,16 @@ def _missing_mask(children: Sequence[np.ndarray], rule: str) -> np.ndarray:
     return present < len(children) if rule == "propagate" else present == 0
 
 
+def _none_missing(children: Sequence[np.ndarray]) -> bool:
+    """Return True when no child has a NaN (then ``ignore`` and ``propagate`` give the same cells).
+
+    One sum per child, with no temporary array: NaN always carries through a
+    sum, so a finite total proves the child has none (an infinite input may
+    give NaN with none missing, which only costs the slower path).
+    """
+    return not any(np.isnan(np.add.reduce(np.asarray(child), axis=None)) for child in children)
+
+
 def _fold(children, nodata, combine, neutral, transform=None):
     """Fold the ufunc ``combine`` over the children in float64.
 
@@ -63,6 +73,8 @@ def _fold(children, nodata, combine, neutral, transform=None):
     maps each child before folding (``1 − μ`` for the algebraic sum).
     """
     _stack_check(children)
+    if nodata == "ignore" and _none_missing(children):
+        nodata = "propagate"  # the same cells, without the masks and the neutral fill
 
     def value(child):
         array = np.asarray(child, dtype=np.float64)
@@ -211,6 +223,8 @@ def weighted_mean(children: Sequence[np.ndarray], weights: Sequence[float],
             raise ParameterError(f"weights must be finite and non-negative, got {w!r}")
     if sum(weights) <= 0:
         raise ParameterError("weighted_mean needs at least one positive weight")
+    if nodata == "ignore" and _none_missing(children):
+        nodata = "propagate"  # every weight present everywhere: the same cells, fewer passes
     if nodata == "propagate":
         numerator = np.zeros(np.shape(children[0]), dtype=np.float64)
         for child, w in zip(children, weights):
