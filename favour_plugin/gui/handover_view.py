@@ -285,7 +285,7 @@ class HandoverView(QWidget):
         self.threshold_box = NumberBox()
         self.threshold_box.setValue(0.7)
         self.min_area_box = _spin(0.0, 1e9, 0.0, 4, " km²")
-        self.merge_box = _spin(0.0, 1e9, 0.0, 2)
+        self.merge_box = _spin(0.0, 1e9, 0.0, 2, tr(" map units"))
         self.merge_box.setToolTip(tr("Zones closer than this, edge to edge, become one (map units of the "
                                      "favourability's CRS)"))
         self.components_check = QCheckBox(tr("Components' μ per zone"))
