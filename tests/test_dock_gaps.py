@@ -21,7 +21,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 from osgeo import ogr
-from qgis.core import Qgis, QgsApplication, QgsProject
+from qgis.core import Qgis, QgsApplication, QgsProject, QgsVectorLayer
 from qgis.PyQt.QtCore import QMimeData, QPoint, Qt
 from qgis.PyQt.QtGui import QDragEnterEvent, QDragMoveEvent, QDropEvent
 
@@ -29,6 +29,7 @@ from favour_plugin.core.errors import ParameterError
 from favour_plugin.core.tree import Tree
 from favour_plugin.gui.controller import TreeController
 from favour_plugin.gui.dock import FavourDock
+from favour_plugin.gui.layers import UnusableLayerError, proxy_from_layer
 from favour_plugin.gui.project_store import SCOPE, ProjectStore
 from favour_plugin.gui.tree_view import NODE_MIME, drop_destination, drop_place
 from tests.helpers import ORIGIN, leaf, srs, tree_doc, write_raster, write_tree
@@ -328,6 +329,19 @@ def test_the_filter_is_chosen_from_the_layers_fields_and_values_and_undone(dock,
     fields.filter_box.setCurrentIndex(0)
     fields.filter_box.activated.emit(0)
     assert dock.controller.tree.find(faults).proxy.where is None
+
+
+def test_a_layer_filtered_in_qgis_is_refused_pointing_to_the_criterions_own_filter(layers):
+    """A QGIS subset string cannot go into the tree file: refused, naming the layer and the way out."""
+    layer = QgsVectorLayer(f"{layers / 'faults.gpkg'}|layername=faults", "Faults of order 1", "ogr")
+    assert layer.isValid() and layer.setSubsetString('"order" = 1')
+    with pytest.raises(UnusableLayerError) as refused:
+        proxy_from_layer(layer)
+    message = str(refused.value)
+    assert message.startswith("Faults of order 1 has a QGIS filter")
+    assert "'Only features whose'" in message and "save the filtered features to a file" in message
+    layer.setSubsetString("")
+    assert proxy_from_layer(layer).path.endswith("faults.gpkg")  # the same layer unfiltered is taken
 
 
 def test_the_margin_is_set_in_map_units_dropped_with_distance_and_saved(dock, project, layers, tmp_path):

@@ -79,8 +79,11 @@ def proxy_from_layer(layer) -> Proxy:
     elif isinstance(layer, QgsVectorLayer):
         kind = "vector"
         if layer.subsetString():
-            raise UnusableLayerError(tr("{name} has a filter; the tree reads whole files, so save the "
-                               "filtered features to a file first").format(name=layer.name()))
+            raise UnusableLayerError(tr(
+                "{name} has a QGIS filter, which the tree file cannot keep (it reads whole files): "
+                "take the filter off and tick the values under 'Only features whose' in the "
+                "criterion's Layer box, or save the filtered features to a file").format(
+                    name=layer.name()))
     else:
         raise UnusableLayerError(tr("{name} is neither a raster nor a vector layer").format(
             name=layer.name()))
