@@ -816,9 +816,9 @@ def test_run_folders_made_in_the_same_second_differ(tmp_path, monkeypatch):
     """Sixteen run folders made at once with one time stamp are sixteen new folders (mkdir is atomic)."""
     from concurrent.futures import ThreadPoolExecutor
 
-    from favour_plugin.gui import run_job
+    from favour_plugin.gui import algorithm_job, run_job
 
-    monkeypatch.setattr(run_job, "_stamp", lambda: "20300101-000000")
+    monkeypatch.setattr(algorithm_job, "_stamp", lambda: "20300101-000000")
     first = run_job.run_folder(str(tmp_path))
     second = run_job.run_folder(str(tmp_path))
     assert first != second and os.path.isdir(first) and os.path.isdir(second)

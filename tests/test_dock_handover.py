@@ -32,10 +32,11 @@ from qgis.core import (
 from qgis.gui import QgsMapMouseEvent
 from qgis.PyQt.QtCore import QEvent, QPoint, Qt, QUrl
 
+from favour_plugin.gui.algorithm_job import algorithm_available
 from favour_plugin.gui.controller import TreeController
 from favour_plugin.gui.dock import FavourDock
 from favour_plugin.gui.ensemble_job import MONTE_CARLO, SENSITIVITY
-from favour_plugin.gui.handover_job import REPORT, TARGETS, VALIDATE, algorithm_available, parse_capture
+from favour_plugin.gui.handover_job import REPORT, TARGETS, VALIDATE, parse_capture
 from favour_plugin.gui.project_store import ProjectStore
 from favour_plugin.gui.why_here import mu_text
 from favour_plugin.raster.probe import WORK_PREFIX

@@ -30,10 +30,11 @@ from favour_plugin.core.pairwise import RANDOM_INDEX, matrix_from_judgements, pa
 from favour_plugin.core.scoring import node_items
 from favour_plugin.core.sheet_import import read_sheets
 from favour_plugin.core.workshop import STATISTICS, aggregate, aggregate_tree
+from favour_plugin.gui.algorithm_job import algorithm_available
 from favour_plugin.gui.common import STRAW
 from favour_plugin.gui.controller import TreeController
 from favour_plugin.gui.dock import FavourDock
-from favour_plugin.gui.ensemble_job import MONTE_CARLO, SENSITIVITY, algorithm_available
+from favour_plugin.gui.ensemble_job import MONTE_CARLO, SENSITIVITY
 from favour_plugin.gui.project_store import ProjectStore
 from favour_plugin.gui.workshop_model import FLAG_ROLE, KEY_ROLE, VALUE_ROLE, number_text
 from tests.test_dock import DEMO, TREE_FILE, generate, idle, messages, wait

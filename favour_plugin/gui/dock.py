@@ -36,6 +36,7 @@ from ..core.errors import FavourError, TreeFileError
 from ..core.lineage import CAUTION
 from ..core.tree import PATH_SEPARATOR, Proxy
 from .actions import DockActions
+from .algorithm_job import remove_empty_folders
 from .common import icon, notify, tr
 from .defaults import starting_for_proxy
 from .handover_view import HandoverView
@@ -47,7 +48,7 @@ from .pairwise_dialog import PairwiseDialog
 from .problems import ProblemChecker
 from .results import add_results
 from .run_bar import RunBar
-from .run_job import RunJob, remove_empty_folders, run_folder
+from .run_job import RunJob, run_folder
 from .tree_view import CriteriaTreeView, drop_destination
 from .why_here import WhyHere, WhyHerePanel, WhyHereTool
 from .workshop_view import WorkshopView

@@ -16,21 +16,14 @@ what the dock asks for is plain data, checked without running anything.
 
 from __future__ import annotations
 
-import datetime as _dt
 import os
-import shutil
-import tempfile
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 
-from qgis.core import QgsApplication, QgsProcessingAlgRunnerTask, QgsProcessingContext
-from qgis.PyQt import sip
-from qgis.PyQt.QtCore import QObject, QTimer, pyqtSignal
+from qgis.PyQt.QtCore import QObject
 
 from ..core.tree import Tree
-from .common import tr
-from .output_folders import new_folder
-from .run_job import ErrorKeepingFeedback, remove_empty_folders
+from .algorithm_job import AlgorithmJob, stamped_folder
 
 MONTE_CARLO = "favour:montecarlo"
 SENSITIVITY = "favour:sensitivity"
@@ -47,10 +40,6 @@ MC_FILES = {
 }
 SENSITIVITY_TABLE = "sensitivity.csv"
 SENSITIVITY_CHART = "tornado.png"
-
-# Jobs whose task is running: QGIS's task holds raw pointers to their context and feedback.
-_RUNNING: set = set()
-
 
 @dataclass
 class EnsembleOutcome:
@@ -73,7 +62,7 @@ def ensemble_folder(base: str, algorithm: str) -> str:
     OSError
         The folder cannot be made.
     """
-    return new_folder(base, f"{STEMS[algorithm]}-{_dt.datetime.now().strftime('%Y%m%d-%H%M%S')}")
+    return stamped_folder(base, STEMS[algorithm])
 
 
 def monte_carlo_parameters(folder: str, sheets: Sequence[str], *, realisations: int = 200, seed: int = 1,
@@ -103,96 +92,26 @@ def sensitivity_parameters(folder: str, *, fraction: float = 0.1, top_percent: f
     return parameters
 
 
-def algorithm_available(algorithm: str) -> bool:
-    """Return True when the processing registry knows ``algorithm``."""
-    return QgsApplication.processingRegistry().algorithmById(algorithm) is not None
+class EnsembleJob(AlgorithmJob):
+    """Run one uncertainty algorithm on a tree into ``folder``.
 
-
-class EnsembleJob(QObject):
-    """Run one uncertainty algorithm on a tree into ``folder`` in the background.
-
-    Signals
-    -------
-    progress_changed(float)
-        Percentage done.
-    finished(EnsembleOutcome)
-        Emitted once, in the main thread.
+    :attr:`finished` carries an :class:`EnsembleOutcome`.
     """
-
-    progress_changed = pyqtSignal(float)
-    finished = pyqtSignal(object)
 
     def __init__(self, algorithm: str, tree: Tree, folder: str, parameters: dict,
                  parent: QObject | None = None) -> None:
-        super().__init__(parent)
-        self.algorithm = algorithm
+        super().__init__(algorithm, folder, parent=parent)
         self.tree = tree
-        self.folder = os.path.abspath(folder)
-        self.parameters = dict(parameters)
-        self.task = None
-        self.context = None
-        self.feedback = None
-        self._work = None
-        self.outcome: EnsembleOutcome | None = None
+        self.given = dict(parameters)
 
-    @property
-    def running(self) -> bool:
-        """True from :meth:`start` until :attr:`finished` is emitted."""
-        return self.task is not None
+    def parameters(self) -> dict:
+        """Return the tree's work file and the parameters the job was given."""
+        return {"TREE": self.tree_file(self.tree), **self.given}
 
-    def start(self) -> None:
-        """Write the tree file for the run and hand the algorithm's task to QGIS.
-
-        Raises
-        ------
-        RuntimeError
-            The algorithm is not registered.
-        """
-        algorithm = QgsApplication.processingRegistry().algorithmById(self.algorithm)
-        if algorithm is None:
-            raise RuntimeError(tr("the algorithm {id} is not available in this version of Favour "
-                                  "(or the Favour provider did not load)").format(id=self.algorithm))
-        self._work = tempfile.mkdtemp(prefix="favour-ensemble-")
-        tree_file = os.path.join(self._work, "tree.favour.json")
-        self.tree.save(tree_file)
-        parameters = {"TREE": tree_file, **self.parameters}
-        self.context = QgsProcessingContext()
-        self.feedback = ErrorKeepingFeedback()
-        self.feedback.progressChanged.connect(self.progress_changed)
-        self.task = QgsProcessingAlgRunnerTask(algorithm, parameters, self.context, self.feedback)
-        self.task.executed.connect(self._executed)
-        _RUNNING.add(self)
-        QgsApplication.taskManager().addTask(self.task)
-
-    def cancel(self) -> None:
-        """Ask the run to stop; :attr:`finished` follows with ``cancelled`` set."""
-        if self.feedback is not None:
-            self.feedback.cancel()
-        if self.task is not None and not sip.isdeleted(self.task):
-            self.task.cancel()
-
-    def _executed(self, ok: bool, results: dict) -> None:
-        cancelled = self.feedback.isCanceled()
-        self.task = None
-        _RUNNING.discard(self)
-        if self._work:
-            shutil.rmtree(self._work, ignore_errors=True)
-        if ok and not cancelled:
-            files = {key: value for key, value in results.items()
-                     if key.startswith("OUTPUT") and isinstance(value, str) and value
-                     and os.path.exists(value)}
-            self.outcome = EnsembleOutcome(True, False, self.algorithm, self.folder, files,
-                                           results.get("LINEAGE"))
-        else:
-            remove_empty_folders(self.folder)
-            message = tr("cancelled; no output was written") if cancelled else \
-                "\n".join(self.feedback.errors) or tr("the run failed")
-            self.outcome = EnsembleOutcome(False, cancelled, self.algorithm, self.folder, message=message)
-        self.finished.emit(self.outcome)
-        # The context holds the layers the algorithm opened (the deposits); let them go while QGIS
-        # and GDAL are still up, not whenever Python collects the job (perhaps after GDAL is gone).
-        QTimer.singleShot(0, self._release)
-
-    def _release(self) -> None:
-        self.context = None
-        self.feedback = None
+    def outcome_for(self, ok: bool, cancelled: bool, results: dict, message: str = "") -> EnsembleOutcome:
+        """Return the run's :class:`EnsembleOutcome`: the output files it wrote, or why none."""
+        if not ok:
+            return EnsembleOutcome(False, cancelled, self.algorithm, self.folder, message=message)
+        files = {key: value for key, value in results.items()
+                 if key.startswith("OUTPUT") and isinstance(value, str) and value and os.path.exists(value)}
+        return EnsembleOutcome(True, False, self.algorithm, self.folder, files, results.get("LINEAGE"))

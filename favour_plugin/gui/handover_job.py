@@ -2,8 +2,8 @@
 
 :class:`HandoverJob` is to these algorithms what
 :class:`~.ensemble_job.EnsembleJob` is to the uncertainty runs: it runs the
-algorithm in a ``QgsProcessingAlgRunnerTask`` with progress and cancel and
-reports back in the main thread with a :class:`HandoverOutcome`. Each run
+algorithm through :class:`~.algorithm_job.AlgorithmJob` with progress and
+cancel and reports back in the main thread with a :class:`HandoverOutcome`. Each run
 writes into a new folder of its own (``validation-YYYYMMDD-HHMMSS``,
 ``targets-…``, ``report-…``) under the dock's lasting results folder, made
 by :func:`handover_folder`; the jobs put nothing under their final names
@@ -18,19 +18,16 @@ what the dock shows is that file's numbers, not numbers of its own.
 
 from __future__ import annotations
 
-import datetime as _dt
 import os
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 
-from qgis.core import QgsApplication, QgsProcessingAlgRunnerTask, QgsProcessingContext, QgsProject
-from qgis.PyQt import sip
-from qgis.PyQt.QtCore import QObject, QTimer, pyqtSignal
+from qgis.core import QgsProject
+from qgis.PyQt.QtCore import QObject
 
 from ..core.jsonio import LINEAGE_MAX_BYTES, read_json_file
+from .algorithm_job import AlgorithmJob, stamped_folder
 from .common import tr
-from .output_folders import new_folder
-from .run_job import ErrorKeepingFeedback, remove_empty_folders
 
 VALIDATE = "favour:validate"
 TARGETS = "favour:targets"
@@ -43,10 +40,6 @@ TARGETS_FILE = "targets.gpkg"
 REPORT_FILE = "report.html"
 #: How the targets' cut is chosen: the top of the area, a favourability value, the validation's crossing.
 CUTS = ("top", "threshold", "validation")
-
-# Jobs whose task is running: QGIS's task holds raw pointers to their context and feedback.
-_RUNNING: set = set()
-
 
 @dataclass
 class HandoverOutcome:
@@ -73,7 +66,7 @@ def handover_folder(base: str, algorithm: str) -> str:
     OSError
         The folder cannot be made.
     """
-    return new_folder(base, f"{STEMS[algorithm]}-{_dt.datetime.now().strftime('%Y%m%d-%H%M%S')}")
+    return stamped_folder(base, STEMS[algorithm])
 
 
 def parse_capture(text: str) -> list[float]:
@@ -176,12 +169,7 @@ def validation_figures(path: str) -> dict:
     return document if isinstance(document, dict) else {}
 
 
-def algorithm_available(algorithm: str) -> bool:
-    """Return True when the processing registry knows ``algorithm``."""
-    return QgsApplication.processingRegistry().algorithmById(algorithm) is not None
-
-
-class HandoverJob(QObject):
+class HandoverJob(AlgorithmJob):
     """Run one of the three algorithms into ``folder`` in the background.
 
     Parameters
@@ -198,84 +186,19 @@ class HandoverJob(QObject):
     favourability : str, optional
         The favourability raster the run reads, kept for whoever uses its results.
 
-    Signals
-    -------
-    progress_changed(float)
-        Percentage done.
-    finished(HandoverOutcome)
-        Emitted once, in the main thread.
+    :attr:`finished` carries a :class:`HandoverOutcome`.
     """
-
-    progress_changed = pyqtSignal(float)
-    finished = pyqtSignal(object)
 
     def __init__(self, algorithm: str, folder: str, parameters: dict, project: QgsProject | None = None,
                  favourability: str | None = None, parent: QObject | None = None) -> None:
-        super().__init__(parent)
-        self.algorithm = algorithm
+        super().__init__(algorithm, folder, project, parent)
         self.favourability = favourability
-        self.folder = os.path.abspath(folder)
-        self.parameters = dict(parameters)
-        self.project = project
-        self.task = None
-        self.context = None
-        self.feedback = None
-        self.outcome: HandoverOutcome | None = None
-        self._cancel_asked = False
+        self.given = dict(parameters)
 
-    @property
-    def running(self) -> bool:
-        """True from :meth:`start` until :attr:`finished` is emitted."""
-        return self.task is not None
+    def parameters(self) -> dict:
+        """Return the parameters the job was given."""
+        return self.given
 
-    def start(self) -> None:
-        """Hand the algorithm's task to QGIS.
-
-        Raises
-        ------
-        RuntimeError
-            The algorithm is not registered.
-        """
-        algorithm = QgsApplication.processingRegistry().algorithmById(self.algorithm)
-        if algorithm is None:
-            raise RuntimeError(tr("the algorithm {id} is not available in this version of Favour "
-                                  "(or the Favour provider did not load)").format(id=self.algorithm))
-        self.context = QgsProcessingContext()
-        if self.project is not None:
-            self.context.setProject(self.project)
-        self.feedback = ErrorKeepingFeedback()
-        self.feedback.progressChanged.connect(self.progress_changed)
-        self.task = QgsProcessingAlgRunnerTask(algorithm, self.parameters, self.context, self.feedback)
-        self.task.executed.connect(self._executed)
-        _RUNNING.add(self)
-        QgsApplication.taskManager().addTask(self.task)
-
-    def cancel(self) -> None:
-        """Ask the run to stop; :attr:`finished` follows with ``cancelled`` set."""
-        self._cancel_asked = True
-        if self.feedback is not None:
-            self.feedback.cancel()
-        if self.task is not None and not sip.isdeleted(self.task):
-            self.task.cancel()
-
-    def _executed(self, ok: bool, results: dict) -> None:
-        # QGIS also cancels a task whose parameters the algorithm refused before it started (a layer
-        # that is not a file, say); that is a failure with the algorithm's message, not a cancel.
-        cancelled = self._cancel_asked or (self.feedback.isCanceled() and not self.feedback.errors)
-        self.task = None
-        _RUNNING.discard(self)
-        if ok and not cancelled:
-            self.outcome = HandoverOutcome(True, False, self.algorithm, self.folder, dict(results))
-        else:
-            remove_empty_folders(self.folder)
-            message = tr("cancelled; no output was written") if cancelled else \
-                "\n".join(self.feedback.errors) or tr("the run failed")
-            self.outcome = HandoverOutcome(False, cancelled, self.algorithm, self.folder, message=message)
-        self.finished.emit(self.outcome)
-        # The context holds the layers the algorithm opened (the deposits); let them go while QGIS
-        # and GDAL are still up, not whenever Python collects the job.
-        QTimer.singleShot(0, self._release)
-
-    def _release(self) -> None:
-        self.context = None
-        self.feedback = None
+    def outcome_for(self, ok: bool, cancelled: bool, results: dict, message: str = "") -> HandoverOutcome:
+        """Return the run's :class:`HandoverOutcome`: the algorithm's results, or why there are none."""
+        return HandoverOutcome(ok, cancelled, self.algorithm, self.folder, results, message)

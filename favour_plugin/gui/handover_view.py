@@ -39,6 +39,7 @@ from qgis.PyQt.QtWidgets import (
 
 from ..core.errors import FavourError
 from ..core.lineage import CAUTION
+from .algorithm_job import remove_empty_folders
 from .common import icon, notify, tr
 from .handover_job import (
     REPORT,
@@ -54,7 +55,6 @@ from .handover_job import (
 )
 from .output_folders import display_path, ensure_writable
 from .results import add_targets_layer
-from .run_job import remove_empty_folders
 from .widgets import NumberBox
 
 #: Monte Carlo outputs passed to the report, in the order it draws them.

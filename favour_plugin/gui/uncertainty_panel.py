@@ -29,6 +29,7 @@ from qgis.PyQt.QtWidgets import (
 
 from ..core.errors import FavourError
 from ..core.lineage import CAUTION
+from .algorithm_job import remove_empty_folders
 from .common import icon, notify, tr
 from .ensemble_job import (
     MONTE_CARLO,
@@ -40,7 +41,6 @@ from .ensemble_job import (
 )
 from .output_folders import display_path, ensure_writable
 from .results import add_uncertainty_results
-from .run_job import remove_empty_folders
 
 #: Widest the tornado chart is shown in the panel, in pixels.
 CHART_WIDTH = 520
