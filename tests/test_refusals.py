@@ -1108,6 +1108,15 @@ def _mc_call(scene: Scene, **change) -> Callable:
     return partial(monte_carlo, tree, sheets, **kwargs)
 
 
+def _pairwise_over_tree(scene: Scene):
+    """Weights for Source's two children, to be written over the very tree file they were read from."""
+    tree, _, _ = small_workshop(scene.root)
+    matrix = scene.root / "matrix.csv"
+    matrix.write_text(",Mag,Grav\nMag,1,3\nGrav,1/3,1\n", encoding="utf-8")
+    tree_file = scene.path("tree.json")
+    return partial(pairwise_job, str(matrix), tree, "Favourability > Source", tree_file, tree_file)
+
+
 CASES += [
     Case("Monte Carlo output named oddly", RULE_MC_REQUEST, "core",
          lambda s: _mc_call(s, outputs=lambda s, o: {"median": o["p50"]}), ParameterError,
@@ -1119,6 +1128,9 @@ CASES += [
          lambda s: _mc_call(s, outputs=lambda s, o: {**o, "mean": str(s.root / "mag.tif")}),
          OutputError, r"mag\.tif \(the mean raster\) is a file this job reads: the layer of "
                       r"Favourability > Source > Mag"),
+    Case("pairwise weights written over the tree file read", RULE_OVER_INPUT, "core",
+         lambda s: _pairwise_over_tree(s), OutputError,
+         r"tree\.json \(the weighted tree\) is a file this job reads: the tree file"),
     Case("sensitivity table not CSV", RULE_MC_REQUEST, "core",
          lambda s: partial(sensitivity, small_workshop(s.root)[0], str(s.out / "s.txt")), ParameterError,
          r"the sensitivity table .*s\.txt must end in \.csv"),

@@ -123,7 +123,7 @@ def run_pairwise(args, feedback) -> int:
     from ..raster.workshop_jobs import describe_pairwise, pairwise_job
 
     tree = _tree(args.tree) if args.tree else None
-    job = pairwise_job(args.matrix, tree, args.node, args.tree_out)
+    job = pairwise_job(args.matrix, tree, args.node, args.tree_out, args.tree)
     print(describe_pairwise(job, args.node))
     return 0
 

@@ -61,7 +61,7 @@ class PairwiseWeightsAlgorithm(WorkshopAlgorithm):
         node = self.parameterAsString(parameters, self.NODE, context).strip() or None
         output_tree = self.parameterAsFileOutput(parameters, self.OUTPUT_TREE, context) or None
         tree = run_guarded(Tree.load, tree_file) if tree_file else None
-        job = run_guarded(pairwise_job, matrix, tree, node, output_tree)
+        job = run_guarded(pairwise_job, matrix, tree, node, output_tree, tree_file)
         for line in describe_pairwise(job, node).splitlines():
             feedback.pushInfo(line)
         r = job.result

@@ -324,18 +324,22 @@ class PairwiseJob:
 
 
 def pairwise_job(matrix_file: str, tree: Tree | None = None, node: str | None = None,
-                 output_tree: str | None = None) -> PairwiseJob:
+                 output_tree: str | None = None, source_tree: str | None = None) -> PairwiseJob:
     """Weights of the elements of a pairwise-comparison matrix; put into a node's children if asked.
 
     With ``tree``, ``node`` and ``output_tree`` the matrix's names must be the
     node's children; the tree with those weights is written to
     ``output_tree`` (a new file; relative layer paths rewritten for its folder).
+    ``source_tree`` is the file ``tree`` was read from, so the output is never
+    written over it.
 
     Raises
     ------
     ParameterError
         A matrix that is not reciprocal (the pair named), names that are not
         the node's children, an unknown node.
+    OutputError
+        ``output_tree`` is the matrix or the tree file read.
     """
     names, matrix = read_matrix(matrix_file)
     result = pairwise_weights(matrix)
@@ -353,7 +357,10 @@ def pairwise_job(matrix_file: str, tree: Tree | None = None, node: str | None = 
                              f"{', '.join(children) or 'none'}")
     new_tree = tree_with_weights(tree, node, dict(zip(names, (float(w) for w in result.weights))))
     output_tree = os.path.abspath(output_tree)
-    check_apart([("the weighted tree", output_tree)], [("the matrix", os.path.abspath(matrix_file))])
+    read = [("the matrix", os.path.abspath(matrix_file))]
+    if source_tree:
+        read.append(("the tree file", os.path.abspath(source_tree)))
+    check_apart([("the weighted tree", output_tree)], read)
     with OutputJob([output_tree]) as run:
         new_tree.rebase(os.path.dirname(output_tree))
         run.outputs.add_text(output_tree, new_tree.to_json())
