@@ -92,9 +92,13 @@ def plain_vector_file(parameters: dict, parameter: str, layer) -> tuple[str, str
     return os.path.abspath(path), name
 
 
-def features_copy_path(output: str) -> str:
-    """Return where the features of a non-file vector layer are copied for ``output``."""
-    return os.path.splitext(output)[0] + ".features.gpkg"
+def features_copy_path(output: str, kind: str = "features") -> str:
+    """Return where the features of a non-file vector layer are copied for ``output``.
+
+    ``OUTPUT.EXT`` gives ``OUTPUT.KIND.gpkg`` beside it (``kind``: ``features``,
+    ``deposits``, …), in the output's own folder whatever dots the path holds.
+    """
+    return os.path.splitext(output)[0] + f".{kind}.gpkg"
 
 
 def export_features(source, path: str, context, feedback) -> int:

@@ -18,7 +18,7 @@ from qgis.core import (
 
 from ..raster.report_jobs import write_report
 from .base import FavourAlgorithm, ProcessingFeedback, note_temporary, run_guarded
-from .layers import VectorInput, raster_layer_path
+from .layers import VectorInput, features_copy_path, raster_layer_path
 from .validate import GROUP, GROUP_ID
 
 
@@ -107,7 +107,7 @@ class ReportAlgorithm(FavourAlgorithm):
         deposits = layer = None
         if self._deposits is not None:
             deposits, layer = self._deposits.resolve(self, parameters, context, feedback,
-                                                     output.rsplit(".", 1)[0] + ".deposits.gpkg")
+                                                     features_copy_path(output, "deposits"))
         with (self._deposits.kept_on_success() if self._deposits is not None else nullcontext()):
             result = run_guarded(
                 write_report, self._raster, output, files[self.COMPONENTS], files[self.VALIDATION],

@@ -14,7 +14,7 @@ from qgis.core import (
 
 from ..raster.ensemble_jobs import sensitivity
 from .base import ProcessingFeedback, note_temporary, run_guarded
-from .layers import VectorInput
+from .layers import VectorInput, features_copy_path
 from .workshop_base import WorkshopAlgorithm
 
 
@@ -71,7 +71,7 @@ class SensitivityAlgorithm(WorkshopAlgorithm):
         deposits = layer = None
         if self._deposits is not None:
             deposits, layer = self._deposits.resolve(self, parameters, context, feedback,
-                                                     table[:-4] + ".deposits.gpkg")
+                                                     features_copy_path(table, "deposits"))
         with (self._deposits.kept_on_success() if self._deposits is not None else nullcontext()):
             result = run_guarded(sensitivity, tree, table, chart, fraction, top, deposits, layer,
                                  ProcessingFeedback(feedback), tree_file=tree_file)

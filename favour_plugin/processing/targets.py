@@ -19,7 +19,7 @@ from qgis.core import (
 
 from ..raster.target_jobs import find_targets
 from .base import FavourAlgorithm, ProcessingFeedback, note_temporary, run_guarded, style_on_load
-from .layers import VectorInput, raster_layer_path
+from .layers import VectorInput, features_copy_path, raster_layer_path
 from .validate import GROUP, GROUP_ID
 
 
@@ -123,7 +123,7 @@ class TargetsAlgorithm(FavourAlgorithm):
         deposits = layer = None
         if self._deposits is not None:
             deposits, layer = self._deposits.resolve(self, parameters, context, feedback,
-                                                     output[:-5] + ".deposits.gpkg")
+                                                     features_copy_path(output, "deposits"))
             if self._deposits.plain is None and name_field:
                 feedback.pushWarning(f"NAME_FIELD: the occurrences were copied without their attributes, "
                                      f"so {name_field!r} cannot name them; save the layer to a file to "

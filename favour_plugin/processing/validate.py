@@ -22,7 +22,7 @@ from ..core import validation as val
 from ..raster.validation_jobs import validate
 from .base import FavourAlgorithm, ProcessingFeedback, note_temporary, run_guarded
 from .evidence_weights import advanced
-from .layers import VectorInput, raster_layer_path
+from .layers import VectorInput, features_copy_path, raster_layer_path
 
 GROUP = "Validation and targets"
 GROUP_ID = "validation"
@@ -154,12 +154,12 @@ class ValidateAlgorithm(FavourAlgorithm):
         output_json = self.parameterAsFileOutput(parameters, self.OUTPUT_JSON, context)
         output_csv = self.parameterAsFileOutput(parameters, self.OUTPUT_CSV, context) or None
         note_temporary(feedback, output_json, output_csv)
-        base = output_json[:-5] if output_json.lower().endswith(".json") else output_json
-        deposits, layer = self._deposits.resolve(self, parameters, context, feedback, base + ".deposits.gpkg")
+        deposits, layer = self._deposits.resolve(self, parameters, context, feedback,
+                                                 features_copy_path(output_json, "deposits"))
         held_out = held_layer = None
         if self._held_out is not None:
             held_out, held_layer = self._held_out.resolve(self, parameters, context, feedback,
-                                                          base + ".held-out.gpkg")
+                                                          features_copy_path(output_json, "held-out"))
         with self._deposits.kept_on_success(), \
                 (self._held_out.kept_on_success() if self._held_out is not None else nullcontext()):
             job = run_guarded(validate, self._raster, deposits, output_json, output_csv, band, layer,
