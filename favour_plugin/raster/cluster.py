@@ -45,8 +45,15 @@ from .writer import NODATA, compression_options
 
 #: Bands (rows of windows) per task: enough work per task to hide the scheduling.
 BANDS_PER_TASK = 1
-_TILE_OPTIONS = ["TILED=YES", "BLOCKXSIZE=256", "BLOCKYSIZE=256", "COMPRESS=ZSTD", "ZSTD_LEVEL=1",
-                 "PREDICTOR=3", "BIGTIFF=IF_SAFER"]
+
+
+def _tile_options() -> list[str]:
+    """Creation options of a worker's tile: the default compression of the worker's GDAL, one thread.
+
+    Each worker compresses its own tiles, so GDAL's own threads would only
+    compete with the other workers on the machine.
+    """
+    return [o for o in compression_options(None)[1] if not o.startswith("NUM_THREADS=")]
 
 
 @dataclass
@@ -127,16 +134,15 @@ def band_task(compute, grid: Grid, row: int, rows: int, tiles: dict[str, str]) -
         try:
             for name, tile in tiles.items():
                 ds = gdal.GetDriverByName("GTiff").Create(tile, grid.width, rows, 1, gdal.GDT_Float32,
-                                                          _TILE_OPTIONS)
+                                                          _tile_options())
                 ds.SetGeoTransform(band_grid.transform)
                 ds.SetProjection(grid.crs_wkt)
                 ds.GetRasterBand(1).SetNoDataValue(NODATA)
                 outputs[name] = ds
             reader = BlockReader()
             try:
-                for window in iter_windows(grid.width, grid.height):
-                    if not row <= window.row_off < row + rows:
-                        continue
+                for local in iter_windows(grid.width, rows):  # a band is whole rows of windows
+                    window = local._replace(row_off=local.row_off + row)
                     arrays, extra = compute(window, reader)
                     extras.append(extra)
                     for name, ds in outputs.items():
