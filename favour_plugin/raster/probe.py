@@ -394,7 +394,8 @@ class Probe:
         workdir = tempfile.mkdtemp(prefix=WORK_PREFIX, dir=self.work_parent or None)
         failure = None
         try:
-            prepared = prepare_inputs(tree, plan, None, workdir, feedback, span=(0.0, 0.95))
+            prepared = prepare_inputs(tree, plan, None, workdir, feedback, span=(0.0, 0.95),
+                                      hash_inputs=False)
             units = _units(tree, plan, prepared.grid)
         except BaseException as exc:
             failure = _without_frames(exc)  # closes the files GDAL still had open in the work folder

@@ -102,21 +102,40 @@ def input_files(path: str, vector: bool) -> list[str]:
     return lin.relevant_files(files)
 
 
-class _Hasher(threading.Thread):
-    """Computes SHA-256 of the input files while the blocks stream."""
+class FileHasher(threading.Thread):
+    """Describes files (path, size, SHA-256) in the background while the blocks stream.
+
+    Started on creation; :meth:`wait` returns the descriptions by path and
+    raises, in the caller's thread, what reading a file raised here.
+    """
 
     def __init__(self, files: list[str]) -> None:
         super().__init__(daemon=True, name="favour-hash")
-        self.files = files
+        self.files = list(dict.fromkeys(files))
         self.result: dict[str, dict] = {}
         self.error: BaseException | None = None
+        self.start()
 
     def run(self) -> None:
+        """Describe every file; keep an error to raise in the caller's thread."""
         try:
             for entry in lin.describe_files(self.files):
                 self.result[entry["path"]] = entry
         except OSError as exc:  # a file vanished mid-run; reported in the lineage check
             self.error = exc
+
+    def wait(self) -> dict[str, dict]:
+        """Wait for the checksums; return them by path.
+
+        Raises
+        ------
+        MissingInputError
+            An input file could not be read while hashing it.
+        """
+        self.join()
+        if self.error is not None:
+            raise MissingInputError(f"an input file could not be read while hashing it: {self.error}")
+        return self.result
 
 
 def job_inputs(tree: Tree, plan: EvaluationPlan, tree_file: str | None = None,
@@ -145,8 +164,10 @@ class PreparedInputs:
     """What a streamed job over a tree's proxies needs before its first block.
 
     ``sources`` maps each leaf path to how it is read on ``grid``;
-    ``leaf_files`` to the files GDAL reads for it; the ``hasher`` is already
-    computing their checksums in the background (:meth:`checksums` waits).
+    ``leaf_files`` to the files GDAL reads for it; ``files`` are every file the
+    job reads. Their checksums are computed in the background from the first
+    call of :meth:`start_hashing` (made by :func:`prepare_inputs` unless told
+    not to) and returned by :meth:`checksums`.
     """
 
     grid: Grid
@@ -154,7 +175,13 @@ class PreparedInputs:
     sources: dict[str, SourceSpec]
     leaf_files: dict[str, list[str]]
     cache_bytes: int
-    hasher: _Hasher
+    files: list[str]
+    hasher: FileHasher | None = None
+
+    def start_hashing(self) -> None:
+        """Start computing the input checksums in the background (once)."""
+        if self.hasher is None:
+            self.hasher = FileHasher(self.files)
 
     def checksums(self) -> dict[str, dict]:
         """Wait for the input checksums and return them by path.
@@ -164,19 +191,19 @@ class PreparedInputs:
         MissingInputError
             An input file could not be read while hashing it.
         """
-        self.hasher.join()
-        if self.hasher.error is not None:
-            raise MissingInputError(f"an input file could not be read while hashing it: {self.hasher.error}")
-        return self.hasher.result
+        self.start_hashing()
+        return self.hasher.wait()
 
 
 def prepare_inputs(tree: Tree, plan: EvaluationPlan, grid: Grid | None, workdir: str,
                    feedback: Feedback, tree_file: str | None = None, max_cells: int | None = None,
-                   span: tuple[float, float] = (0.0, 0.15)) -> PreparedInputs:
+                   span: tuple[float, float] = (0.0, 0.15), hash_inputs: bool = True) -> PreparedInputs:
     """Build the grid, align every leaf's proxy to it and start hashing the inputs.
 
     ``grid`` overrides the tree's grid; ``max_cells`` coarsens it for a
-    quick look. Run inside :func:`~.gdalenv.gdal_job`.
+    quick look. ``hash_inputs`` False leaves the checksums until they are
+    asked for (a job that writes no lineage never pays for them). Run inside
+    :func:`~.gdalenv.gdal_job`.
     """
     if grid is None:
         grid, grid_note = reference_grid(tree)
@@ -202,9 +229,10 @@ def prepare_inputs(tree: Tree, plan: EvaluationPlan, grid: Grid | None, workdir:
         path = str(leaf.proxy.resolve(tree.base_dir))
         leaf_files[leaf.path] = input_files(path, sources[leaf.path].record["kind"] == "vector")
         files.extend(leaf_files[leaf.path])
-    hasher = _Hasher(list(dict.fromkeys(files)))
-    hasher.start()
-    return PreparedInputs(grid, grid_note, sources, leaf_files, cache_bytes, hasher)
+    prepared = PreparedInputs(grid, grid_note, sources, leaf_files, cache_bytes, list(dict.fromkeys(files)))
+    if hash_inputs:
+        prepared.start_hashing()
+    return prepared
 
 
 def read_leaves(plan: EvaluationPlan, sources: dict[str, SourceSpec], reader: BlockReader,

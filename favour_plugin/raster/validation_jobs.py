@@ -25,7 +25,6 @@ import json
 import math
 import os
 import platform
-import threading
 from dataclasses import dataclass
 
 import numpy as np
@@ -34,7 +33,7 @@ from osgeo import gdal
 from .. import about
 from ..core import lineage as lin
 from ..core import validation as val
-from ..core.errors import InputError, MissingInputError, NodataWarning, OutputError, ParameterError
+from ..core.errors import InputError, NodataWarning, OutputError, ParameterError
 from ..core.feedback import Feedback
 from ..core.validation_counts import RankCounts, count_block, prediction_area_table, threshold_at_area
 from .blocks import BLOCK_COLS, BLOCK_ROWS, Window
@@ -44,7 +43,7 @@ from .grid import Grid
 from .outputs import OutputJob, OutputSet, check_apart, stage_lineage
 from .sources import SourceSpec, cache_need, open_raster, raster_source
 from .streaming import map_windows
-from .tree_inputs import input_files
+from .tree_inputs import FileHasher, input_files
 
 #: Cells one small read around deposit cells covers at most (a tile of the writer's).
 _TILE = 256
@@ -83,32 +82,20 @@ def read_files(entries: list[tuple[str, str | None, bool]]) -> list[tuple[str, s
             for f in input_files(path, vector) or [path]]
 
 
-class Hasher(threading.Thread):
-    """Describes input files (size, SHA-256) in the background while the blocks stream."""
+class Hasher:
+    """Describes the inputs of a job (their files' size and SHA-256) in the background, by role."""
 
     def __init__(self, entries: list[tuple[str, str | None, bool | None]]) -> None:
-        super().__init__(daemon=True, name="favour-validation-hash")
         self.entries = [(role, path, vector) for role, path, vector in entries if path]
         self.files = {path: (input_files(path, vector) if vector is not None else [path]) or [path]
                       for _, path, vector in self.entries}
-        self.result: list[dict] = []
-        self.error: BaseException | None = None
-        self.start()
-
-    def run(self) -> None:
-        """Describe every file; keep an error to raise in the caller's thread."""
-        try:
-            self.result = [{"role": role, "path": path, "files": lin.describe_files(self.files[path])}
-                           for role, path, _ in self.entries]
-        except OSError as exc:  # a file vanished mid-run
-            self.error = exc
+        self._hasher = FileHasher([f for files in self.files.values() for f in files])
 
     def inputs(self) -> list[dict]:
         """Wait for the checksums; return the lineage's input entries."""
-        self.join()
-        if self.error is not None:
-            raise MissingInputError(f"an input file could not be read while hashing it: {self.error}")
-        return self.result
+        found = self._hasher.wait()
+        return [{"role": role, "path": path, "files": [found[f] for f in self.files[path]]}
+                for role, path, _ in self.entries]
 
 
 def lineage_record(job: str, created: str, grid: Grid, inputs: list[dict], parameters: dict,
