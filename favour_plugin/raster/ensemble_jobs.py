@@ -22,7 +22,6 @@ lineage records both.
 from __future__ import annotations
 
 import functools
-import math
 import os
 import threading
 from collections.abc import Mapping, Sequence
@@ -36,8 +35,10 @@ from ..core.errors import InputError, ParameterError
 from ..core.feedback import Feedback
 from ..core.scoring import apply_values
 from ..core.sheet_import import read_sheets
+from ..core.targets import check_top_percent
 from ..core.tree import BlockCache, EvaluationPlan, Tree
 from ..core.uncertainty import MODES, sample_values, sensitivity_variants
+from ..core.validation import MIN_DEPOSITS
 from ..core.workshop import STATISTICS, check_expert_weights
 from .blocks import Window, iter_windows
 from .cluster import assemble, connect, run_bands, run_items
@@ -79,14 +80,6 @@ class EnsembleResult:
     lineage_file: str
     record: dict
     rows: list[dict] = field(default_factory=list)
-
-
-def _check_top(top_percent) -> float:
-    if isinstance(top_percent, bool) or not isinstance(top_percent, (int, float)) \
-            or not math.isfinite(top_percent) or not 0 < top_percent < 100:
-        raise ParameterError(f"the top area must be a percentage between 0 and 100 (10 for the top "
-                             f"10 %), got {top_percent!r}")
-    return float(top_percent)
 
 
 def _strip_rows(n: int, width: int) -> int:
@@ -269,7 +262,7 @@ def monte_carlo(tree: Tree, sheets: Sequence[str], outputs: Mapping[str, str], n
     """
     feedback = feedback or Feedback()
     threads = threads or DEFAULT_THREADS
-    top_percent = _check_top(top_percent)
+    top_percent = check_top_percent(top_percent)
     unknown = sorted(set(outputs) - set(MC_OUTPUTS))
     if unknown or not outputs:
         raise ParameterError(f"Monte Carlo outputs are named {', '.join(MC_OUTPUTS)}; got "
@@ -432,7 +425,7 @@ def sensitivity(tree: Tree, output_table: str, output_chart: str | None = None, 
     """
     feedback = feedback or Feedback()
     threads = threads or DEFAULT_THREADS
-    top_percent = _check_top(top_percent)
+    top_percent = check_top_percent(top_percent)
     output_table = os.path.abspath(output_table)
     if not output_table.lower().endswith(".csv"):
         raise ParameterError(f"the sensitivity table {output_table} must end in .csv")
@@ -476,7 +469,7 @@ def sensitivity(tree: Tree, output_table: str, output_chart: str | None = None, 
             "outputs": {"table": output_table, "chart": output_chart},
             "warnings": list(feedback.warnings),
         }
-        if points is not None and points.on_grid < 10:
+        if points is not None and points.on_grid < MIN_DEPOSITS:
             feedback.warning(f"only {points.on_grid} deposits on the grid: the AUC and its changes rest "
                              "on very little evidence")
         feedback.check_cancelled()
