@@ -33,8 +33,6 @@ BINS = 1 << KEY_BITS
 _SHIFT = np.uint32(32 - KEY_BITS)
 _SIGN = np.uint32(0x80000000)
 _LOW = np.uint32(0x7FFFFFFF)
-#: Bins a block may span for its histogram to be found by looking up bin edges.
-_SPAN = 65536
 
 
 def float_keys(values) -> np.ndarray:
@@ -169,11 +167,13 @@ def count_block(values, targets, invalid=None) -> dict:
 
     Notes
     -----
-    The block's valid values are sorted once; each target's count of cells
-    below is then its left insertion point and its count of equal cells the
-    distance to its right insertion point, so nothing is compared per cell
-    in Python and ties are counted exactly. The sorted keys give the
-    histogram as run lengths.
+    Nothing is sorted per cell. Each valid value's histogram bin (the top
+    :data:`KEY_BITS` bits of its order-preserving float32 key) is counted
+    with one ``bincount``; as the bins are ordered as the values are, the
+    cells in bins below a target's bin are all below the target. Only the
+    cells sharing a bin with some target (a few, for a few hundred targets
+    among 2¹⁸ bins) are sorted and compared with the targets in the values'
+    own number type, so ties are counted exactly.
     """
     flat = np.asarray(values).reshape(-1)
     keep = None
@@ -182,40 +182,35 @@ def count_block(values, targets, invalid=None) -> dict:
     if invalid is not None:
         valid_mask = ~np.asarray(invalid, dtype=bool).reshape(-1)
         keep = valid_mask if keep is None else keep & valid_mask
-    if keep is not None and keep.all():
-        keep = None
-    known = np.sort(flat if keep is None else flat[keep])
-    below = np.searchsorted(known, targets, side="left").astype(np.int64)
-    equal = np.searchsorted(known, targets, side="right").astype(np.int64) - below
-    out = {"below": below, "equal": equal, "valid": int(known.size), "infinite": 0,
-           "minimum": math.nan, "maximum": math.nan,
+    known = flat if keep is None or keep.all() else flat[keep]
+    targets = np.asarray(targets)
+    out = {"below": np.zeros(targets.size, dtype=np.int64), "equal": np.zeros(targets.size, dtype=np.int64),
+           "valid": int(known.size), "infinite": 0, "minimum": math.nan, "maximum": math.nan,
            "bins": np.zeros(0, dtype=np.int64), "counts": np.zeros(0, dtype=np.int64)}
-    if known.size:
-        out["minimum"], out["maximum"] = float(known[0]), float(known[-1])
-        if known.dtype.kind == "f":
-            out["infinite"] = int(np.searchsorted(known, -np.inf, side="right")
-                                  + known.size - np.searchsorted(known, np.inf, side="left"))
-        out["bins"], out["counts"] = _sorted_histogram(known)
+    if not known.size:
+        return out
+    out["minimum"], out["maximum"] = float(known.min()), float(known.max())
+    if known.dtype.kind == "f":
+        out["infinite"] = int(np.count_nonzero(np.isinf(known)))
+    cell_bins = float_keys(known) >> _SHIFT
+    first = int(cell_bins.min())
+    counts = np.bincount((cell_bins - np.uint32(first)).astype(np.intp))
+    filled = np.flatnonzero(counts)
+    out["bins"], out["counts"] = (filled + first).astype(np.int64), counts[filled].astype(np.int64)
+    if targets.size:
+        target_bins = (float_keys(targets) >> _SHIFT).astype(np.int64)
+        # Cells in bins strictly below each target's bin: all of them are below the target.
+        before = np.concatenate([[0], np.cumsum(counts)])
+        out["below"] = before[np.clip(target_bins - first, 0, counts.size)].astype(np.int64)
+        # Cells in a target's own bin: compared exactly, in the values' own number type.
+        marked = np.zeros(BINS, dtype=bool)
+        marked[target_bins] = True
+        shared = np.sort(known[marked[cell_bins]])
+        shared_bins = (float_keys(shared) >> _SHIFT).astype(np.int64)
+        left = np.searchsorted(shared, targets, side="left")
+        out["below"] += left - np.searchsorted(shared_bins, target_bins, side="left")
+        out["equal"] = (np.searchsorted(shared, targets, side="right") - left).astype(np.int64)
     return out
-
-
-def _sorted_histogram(known: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Return the non-empty bins of sorted values and their counts.
-
-    When the values span few bins (the usual case: 512 bins per factor of
-    two), each bin's lower edge is looked up in the sorted values, which
-    costs per bin, not per cell; otherwise every value's key is taken.
-    """
-    first, last = (int(b) for b in float_keys(known[[0, -1]]) >> _SHIFT)
-    if last - first <= _SPAN:
-        edges = key_values(np.arange(first + 1, last + 1, dtype=np.uint32) << _SHIFT)
-        cuts = np.searchsorted(known, edges.astype(known.dtype) if known.dtype.kind == "f" else edges)
-        counts = np.diff(np.concatenate([[0], cuts, [known.size]])).astype(np.int64)
-        bins = np.arange(first, last + 1, dtype=np.int64)
-        return bins[counts > 0], counts[counts > 0]
-    bins = (float_keys(known) >> _SHIFT).astype(np.int64)  # sorted, since the keys are
-    starts = np.concatenate([[0], np.flatnonzero(bins[1:] != bins[:-1]) + 1])
-    return bins[starts], np.diff(np.concatenate([starts, [bins.size]])).astype(np.int64)
 
 
 def _deposits_at_or_above(deposit_values: np.ndarray, thresholds: np.ndarray) -> np.ndarray:
