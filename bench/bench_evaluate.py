@@ -55,8 +55,10 @@ from common import (
     Field,
     Measure,
     Qgis,
+    bench_env,
     folder_bytes,
     fresh,
+    hash_once,
     housekeeping,
     mb,
     run_child,
@@ -537,7 +539,7 @@ def main(argv: list[str] | None = None) -> int:
 def run(work: Path, size: int, double: bool, profile: bool, threads: int) -> int:
     """Run the benchmark in ``work`` for ``size`` x ``size`` proxies; return the exit status."""
     load = os.getloadavg()
-    env = dict(os.environ, QT_QPA_PLATFORM="offscreen")
+    env = bench_env(work)
     logs = work / "logs"
     result = work / "logs" / "child-result.json"
     inputs_dir = work / f"inputs-{size}-{INPUTS}"
@@ -545,6 +547,7 @@ def run(work: Path, size: int, double: bool, profile: bool, threads: int) -> int
     out.mkdir(parents=True, exist_ok=True)
     manifest = build_inputs(inputs_dir, size)
     inputs = input_paths(inputs_dir)
+    hash_once(env, inputs)
     tree = str(inputs_dir / "tree.json")
     tiny_dir = work / f"inputs-64-{INPUTS}"
     build_inputs(tiny_dir, 64)
@@ -658,6 +661,7 @@ def run_double(work: Path, size: int, inputs_dir: Path, favour: Qgis, env: dict,
         print("  skipped: not enough free disk")
         return f"skipped: {need / 2**30:.1f} GiB needed, {free / 2**30:.1f} GiB free"
     build_inputs(big_dir, big)
+    hash_once(env, input_paths(big_dir))
     tree = str(big_dir / "tree.json")
     out = work / f"outputs-{big}"
     out.mkdir(parents=True, exist_ok=True)

@@ -54,7 +54,9 @@ from common import (
     Field,
     Measure,
     Qgis,
+    bench_env,
     fresh,
+    hash_once,
     housekeeping,
     mb,
     run_child,
@@ -635,7 +637,7 @@ def main(argv: list[str] | None = None) -> int:
 def run(work: Path, size: int, profile: bool) -> int:
     """Run the benchmark in ``work`` for a ``size`` x ``size`` evidence raster; return the exit status."""
     load = os.getloadavg()
-    env = dict(os.environ, QT_QPA_PLATFORM="offscreen")
+    env = bench_env(work)
     logs = work / "logs"
     result = logs / "child-result.json"
     inputs_dir = work / f"inputs-{size}"
@@ -643,6 +645,7 @@ def run(work: Path, size: int, profile: bool) -> int:
     out.mkdir(parents=True, exist_ok=True)
     manifest = build_inputs(inputs_dir, size)
     evidence, deposits = str(inputs_dir / "host_rock.tif"), str(inputs_dir / "deposits.gpkg")
+    hash_once(env, [evidence, deposits])
     # QGIS writes approximate statistics beside a raster layer it opens; start every run without them.
     for stale in (*inputs_dir.glob("*.aux.xml"), *(work / "inputs-64").glob("*.aux.xml")):
         stale.unlink()

@@ -29,7 +29,7 @@ import sys
 import time
 from pathlib import Path
 
-from common import ROOT, python_child, run_child, verdict, write_seconds
+from common import ROOT, bench_env, hash_once, python_child, run_child, verdict, write_seconds
 
 DEMO = ROOT / "resources" / "demo"
 
@@ -102,10 +102,11 @@ def main(argv: list[str] | None = None) -> int:
         return 0
     work = Path(args.workdir).resolve()
     work.mkdir(parents=True, exist_ok=True)
-    env = dict(os.environ, QT_QPA_PLATFORM="offscreen")
+    env = bench_env(work)
     logs, result = work / "logs", work / "logs" / "result.json"
     load = os.getloadavg()[0]
     tree, sheets = build(work, args.cells)
+    hash_once(env, sorted(str(p) for p in (work / "layers").iterdir() if p.is_file()))
     out = work / "out"
     shutil.rmtree(out, ignore_errors=True)
     out.mkdir()

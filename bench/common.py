@@ -114,6 +114,35 @@ sys.exit(os.waitstatus_to_exitcode(status))
 """
 
 
+def bench_env(work: Path) -> dict:
+    """Return the environment of every child: headless, with a checksum cache of the benchmark's own.
+
+    Favour remembers input checksums (``core/checksums.py``), so only the
+    first run over new inputs pays for hashing them. The cache here starts
+    empty in ``work``, so the user's own cache is never read or written;
+    :func:`hash_once` fills it before the stages.
+    """
+    work.mkdir(parents=True, exist_ok=True)
+    cache = work / "checksums.json"
+    cache.unlink(missing_ok=True)
+    return dict(os.environ, QT_QPA_PLATFORM="offscreen", FAVOUR_CHECKSUM_CACHE=str(cache))
+
+
+def hash_once(env: dict, inputs: list[str]) -> None:
+    """Hash ``inputs`` into the cache of ``env``, as a first run would; print what it took.
+
+    Every stage then measures a re-run, so no stage gets checksums another
+    stage paid for.
+    """
+    code = ("import sys, time; from favour_plugin.core.lineage import describe_files; "
+            "t = time.perf_counter(); n = sum(e['size'] for e in describe_files(sys.argv[1:])); "
+            "print(f'{n / 2**20:.0f} MB in {time.perf_counter() - t:.1f} s')")
+    done = subprocess.run([sys.executable, "-c", code, *inputs], env=dict(env, PYTHONPATH=str(ROOT)),
+                          capture_output=True, text=True, check=True)
+    print(f"  inputs hashed once, as a first run would, then remembered for every stage: "
+          f"{done.stdout.strip()}", flush=True)
+
+
 def run_child(label: str, args: list[str], env: dict, log: Path, result: Path | None = None,
               quiet: bool = False) -> Measure:
     """Run ``args`` as a child; return its wall time and its own peak RSS.
