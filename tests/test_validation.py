@@ -24,7 +24,14 @@ from favour_plugin.core.errors import InputError, SmallSampleWarning
 from favour_plugin.core.feedback import Feedback
 from favour_plugin.core.lineage import read_lineage
 from favour_plugin.core.tree import Tree
-from favour_plugin.core.validation_counts import RankCounts, bin_edges, float_keys, key_values
+from favour_plugin.core.validation_counts import (
+    KEY_BITS,
+    RankCounts,
+    bin_edges,
+    count_block,
+    float_keys,
+    key_values,
+)
 from favour_plugin.raster.holdout_jobs import holdouts
 from favour_plugin.raster.redundancy_jobs import redundancy
 from favour_plugin.raster.validation_jobs import validate
@@ -245,6 +252,42 @@ def test_value_keys_keep_numpy_order(values):
     assert np.all(np.diff(keys[order].astype(np.int64)) >= 0)
     assert np.all((x[:, None] < x[None, :]) == (keys[:, None] < keys[None, :]))
     assert np.array_equal(key_values(keys), x + np.float32(0.0))
+
+
+@settings(max_examples=150, deadline=None)
+@given(st.integers(0, 2**32 - 1), st.sampled_from(["float32", "float64", "int16", "uint8"]),
+       st.sampled_from([1e-3, 1.0, 1e6]))
+def test_block_counts_equal_numpys_own_comparisons(seed, dtype, scale):
+    """Cells below and equal to each target, the histogram, min, max: as numpy counts them cell by cell.
+
+    Outside reference: numpy's comparison operators and ``np.unique`` on the
+    bin keys, over blocks with NaN, ±inf, −0, ties, a nodata mask and
+    targets in and out of the values' range.
+    """
+    rng = np.random.default_rng(seed)
+    n = int(rng.integers(0, 4000))
+    if dtype.startswith("float"):
+        values = (rng.normal(0, scale, n)).astype(dtype)
+        for share, value in ((0.1, np.nan), (0.02, np.inf), (0.02, -np.inf), (0.05, -0.0)):
+            values[rng.random(n) < share] = value
+        if n:
+            values[rng.random(n) < 0.1] = values[0]
+    else:
+        values = rng.integers(0, 200, n).astype(dtype)
+    invalid = rng.random(n) < 0.05
+    pool = np.concatenate([values[~np.isnan(values.astype(float))], np.array([0, 1, 250], dtype=dtype)])
+    targets = np.unique(rng.choice(pool, int(rng.integers(0, 30))))
+    got = count_block(values, targets, invalid)
+    kept = values[~np.isnan(values.astype(float)) & ~invalid]
+    assert np.array_equal(got["below"], [np.count_nonzero(kept < t) for t in targets])
+    assert np.array_equal(got["equal"], [np.count_nonzero(kept == t) for t in targets])
+    assert got["valid"] == kept.size
+    bins, counts = np.unique((float_keys(kept) >> np.uint32(32 - KEY_BITS)).astype(np.int64),
+                             return_counts=True)
+    assert np.array_equal(got["bins"], bins) and np.array_equal(got["counts"], counts)
+    if kept.size:
+        assert (got["minimum"], got["maximum"]) == (float(kept.min()), float(kept.max()))
+        assert got["infinite"] == (np.count_nonzero(np.isinf(kept)) if kept.dtype.kind == "f" else 0)
 
 
 # -- the bootstrap ------------------------------------------------------------------------------
