@@ -186,10 +186,9 @@ def folders(results: Path, stem: str) -> list[Path]:
 
 
 def need(*algorithms):
-    """Skip when an algorithm is not registered (the provider of an older checkout)."""
+    """Fail, not skip, when an algorithm is not registered: the favour_provider fixture registers them all."""
     for algorithm in algorithms:
-        if not algorithm_available(algorithm):
-            pytest.skip(f"{algorithm} is not registered")
+        assert algorithm_available(algorithm), f"{algorithm} is not registered"
 
 
 # -- the tab ----------------------------------------------------------------------------------

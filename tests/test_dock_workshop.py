@@ -515,11 +515,7 @@ def test_monte_carlo_from_the_dock_adds_its_rasters_from_a_new_folder(dock, proj
     view = dock.workshop
     assert view.load_round(rounds[0])
     panel = view.uncertainty
-    if not algorithm_available(MONTE_CARLO):
-        assert panel.run_monte_carlo() is None
-        assert f"{MONTE_CARLO} is not available" in messages(dock.iface)
-        assert not results.exists() or not any(results.iterdir())
-        pytest.skip(f"{MONTE_CARLO} is not registered yet: the refusal is checked, the run is not")
+    assert algorithm_available(MONTE_CARLO)  # registered by the favour_provider fixture
     panel.realisations.setValue(8)
     outcome = finish(panel, panel.run_monte_carlo)
     assert outcome.ok, outcome.message
@@ -542,11 +538,7 @@ def test_sensitivity_from_the_dock_writes_its_table_and_chart_into_a_new_folder(
     assert occurrences.isValid()
     project.addMapLayer(occurrences)
     panel.deposits.setLayer(occurrences)
-    if not algorithm_available(SENSITIVITY):
-        assert panel.run_sensitivity() is None
-        assert f"{SENSITIVITY} is not available" in messages(dock.iface)
-        assert not results.exists() or not any(results.iterdir())
-        pytest.skip(f"{SENSITIVITY} is not registered yet: the refusal is checked, the run is not")
+    assert algorithm_available(SENSITIVITY)  # registered by the favour_provider fixture
     outcome = finish(panel, panel.run_sensitivity)
     assert outcome.ok, outcome.message
     folder = Path(outcome.folder)
@@ -565,8 +557,7 @@ def test_a_cancelled_monte_carlo_leaves_no_folder_and_no_layer(dock, project, ro
     view = dock.workshop
     assert view.load_round(rounds[0])
     panel = view.uncertainty
-    if not algorithm_available(MONTE_CARLO):
-        pytest.skip(f"{MONTE_CARLO} is not registered yet")
+    assert algorithm_available(MONTE_CARLO)
     layers = set(project.mapLayers())
     panel.realisations.setValue(400)
 

@@ -43,6 +43,7 @@ from .algorithm_job import remove_empty_folders
 from .common import icon, notify, tr
 from .handover_job import (
     REPORT,
+    STEMS,
     TARGETS,
     VALIDATE,
     HandoverJob,
@@ -55,13 +56,12 @@ from .handover_job import (
 )
 from .output_folders import display_path, ensure_writable
 from .results import add_targets_layer
+from .run_job import COMPONENT_FOLDER
 from .widgets import NumberBox
 
 #: Monte Carlo outputs passed to the report, in the order it draws them.
 MONTE_CARLO_KEYS = ("OUTPUT_MEAN", "OUTPUT_STD", "OUTPUT_ROBUSTNESS", "OUTPUT_P10", "OUTPUT_P50",
                     "OUTPUT_P90")
-#: What each run is called in messages.
-RUN_NAMES = {VALIDATE: "validation", TARGETS: "targets", REPORT: "report"}
 
 
 class RunControls(QWidget):
@@ -382,7 +382,7 @@ class HandoverView(QWidget):
         if run is not None and run.output and _same(run.output, raster):
             folder = run.node_folder
         else:
-            folder = os.path.join(os.path.dirname(os.path.abspath(raster)), "components")
+            folder = os.path.join(os.path.dirname(os.path.abspath(raster)), COMPONENT_FOLDER)
         try:
             found = bool(folder) and any(name.lower().endswith(".tif") for name in os.listdir(folder))
         except OSError:  # no such folder (the run wrote no components), or it went meanwhile
@@ -536,7 +536,7 @@ class HandoverView(QWidget):
         running = self.jobs.get(algorithm)
         if running is not None and running.running:
             notify(self.iface, tr("A {run} run is already going on; wait for it or cancel it.").format(
-                run=tr(RUN_NAMES[algorithm])), Qgis.Warning)
+                run=tr(STEMS[algorithm])), Qgis.Warning)
             return None
         try:
             folder = handover_folder(ensure_writable(self.results_folder()), algorithm)
@@ -604,7 +604,7 @@ class HandoverView(QWidget):
             else:
                 controls.status.setText(tr("The run failed; nothing was written."))
                 notify(self.iface, tr("The {run} run failed: {error}").format(
-                    run=tr(RUN_NAMES[outcome.algorithm]), error=outcome.message), Qgis.Critical, 0)
+                    run=tr(STEMS[outcome.algorithm]), error=outcome.message), Qgis.Critical, 0)
         except (FavourError, RuntimeError, OSError, KeyError, TypeError, ValueError) as exc:
             # The files are written; only showing them failed. A slot must not raise.
             controls.status.setText(tr("Written to {folder}, but not shown: {error}").format(

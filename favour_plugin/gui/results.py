@@ -18,6 +18,7 @@ from qgis.core import QgsProject, QgsRasterLayer, QgsVectorLayer
 from ..core.lineage import read_lineage
 from ..core.tree import PATH_SEPARATOR
 from ..processing.base import StyleLoader
+from ..raster.target_zones import LAYER as TARGETS_LAYER
 from .common import tr
 
 GROUP = "Favour results"
@@ -115,8 +116,6 @@ def add_uncertainty_results(outcome, tree_name: str,
     return layers
 
 
-#: The layer the targets job writes in its GeoPackage (raster/target_zones.py LAYER).
-TARGETS_LAYER = "targets"
 
 
 def add_targets_layer(path: str, name: str = "", project: QgsProject | None = None) -> QgsVectorLayer:

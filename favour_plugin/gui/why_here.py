@@ -39,14 +39,11 @@ from ..core.tree import PATH_SEPARATOR, Tree
 from ..raster.probe import CellValues, NodeValue, Probe
 from .common import LOG_TAG, icon, ramp_colour, tr
 from .tasks import FunctionTask, start
+from .tree_view import OPERATOR_LABELS
 
 #: Columns of the panel's tree.
 COLUMNS = ("Node", "How", "μ", "Value")
 #: Operator names as the panel shows them.
-OPERATOR_NAMES = {"and": "fuzzy AND", "or": "fuzzy OR", "product": "product", "sum": "algebraic sum",
-                  "gamma": "gamma", "weighted_mean": "weighted mean"}
-
-
 class TaskFeedback(Feedback):
     """Progress and cancel of a probe's preparation, through the QGIS task running it."""
 
@@ -90,7 +87,7 @@ def operator_text(operator: dict | None) -> str:
     if not isinstance(operator, dict):
         return ""
     kind = operator.get("type", "")
-    text = tr(OPERATOR_NAMES.get(kind, str(kind)))
+    text = tr(OPERATOR_LABELS.get(kind, str(kind)))
     if kind == "gamma" and "gamma" in operator:
         text += f" γ = {operator['gamma']:g}"
     if operator.get("nodata") == "ignore":
