@@ -16,8 +16,9 @@ measures, each in a child process of its own (``bench/common.py``):
     thread shares);
 (c) the job: ``raster.validation_jobs.validate`` writing the JSON result and
     the CSV of curves with their lineages (2 threads, as it runs by
-    default): deposit values read first, one pass over the raster, the
-    bootstrap, the inputs hashed.
+    default): the tiles holding deposits read first and kept, the rest of
+    the raster read once, every block counted, the bootstrap, the inputs
+    hashed.
 
 Targets (from the issue): (c) / (a) at most 2, and peak memory flat: the
 same job on a 12000 x 12000 raster (four times the cells) must peak within

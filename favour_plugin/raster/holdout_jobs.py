@@ -29,6 +29,7 @@ from .evidence import cell_area_km2, study_area_source
 from .gdalenv import gdal_job
 from .grid import Grid
 from .outputs import OutputJob, check_apart
+from .rank_pass import read_at_cells
 from .sources import open_raster, raster_source
 from .validation_jobs import (
     CSV_COLUMNS,
@@ -39,7 +40,6 @@ from .validation_jobs import (
     lineage_record,
     place_deposits,
     planned_outputs,
-    read_at_cells,
     read_files,
     stage_outputs,
 )

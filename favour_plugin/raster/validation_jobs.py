@@ -2,10 +2,10 @@
 
 :func:`validate` places the deposit points on the raster's own grid (as
 weights of evidence does: points off the grid, on nodata or sharing a cell
-are counted and reported), reads the values at the deposit cells first (a
-few small reads), then makes ONE pass over the raster in which every block
-is sorted and the deposit values looked up in it
-(:func:`favour_plugin.core.validation_counts.count_block`), so the ranks,
+are counted and reported), reads the tiles holding deposits first, then
+the rest of the raster, each tile once (:mod:`favour_plugin.raster.rank_pass`):
+every block is binned by value and its cells in the deposit values' bins
+compared with them (:func:`favour_plugin.core.validation_counts.count_block`), so the ranks,
 the AUC, the rate curves, the capture efficiency and the P–A crossing are
 exact; the bootstrap works on the deposits' rank scores without reading
 again. It writes a JSON result and, on request, a CSV of the curves, each
@@ -35,18 +35,15 @@ from ..core import lineage as lin
 from ..core import validation as val
 from ..core.errors import InputError, NodataWarning, OutputError, ParameterError
 from ..core.feedback import Feedback
-from ..core.validation_counts import RankCounts, count_block, prediction_area_table, threshold_at_area
-from .blocks import BLOCK_COLS, BLOCK_ROWS, Window
+from ..core.validation_counts import RankCounts, prediction_area_table, threshold_at_area
+from .blocks import BLOCK_COLS, BLOCK_ROWS
 from .evidence import DepositCells, deposit_cells
 from .gdalenv import gdal_job, set_stream_cache
 from .grid import Grid
 from .outputs import OutputJob, OutputSet, check_apart, stage_lineage
+from .rank_pass import rank_deposits
 from .sources import SourceSpec, cache_need, open_raster, raster_source
-from .streaming import map_windows
 from .tree_inputs import FileHasher, input_files
-
-#: Cells one small read around deposit cells covers at most (a tile of the writer's).
-_TILE = 256
 
 RESULT_FORMAT = "favour-validation"
 CSV_COLUMNS = ("set", "curve", "threshold", "area_percent", "deposits_percent")
@@ -150,41 +147,6 @@ def place_deposits(path: str, layer: str | None, grid: Grid, feedback: Feedback,
         cannot be turned into the grid's, or no point on the grid.
     """
     return deposit_cells(path, layer, grid, feedback, name, purpose)
-
-
-def read_at_cells(read, rows: np.ndarray, cols: np.ndarray, grid: Grid, feedback: Feedback,
-                  threads: int | None = None, span: tuple[float, float] = (0.0, 1.0)) -> list[np.ndarray]:
-    """Return the values of each source at the given cells, read a small window at a time.
-
-    ``read(reader, window)`` returns a list of arrays, one per source, of
-    the window. Cells are grouped by 256 x 256 tile and each group's
-    bounding box is read once, so a tile is decompressed once however many
-    cells it holds.
-    """
-    rows, cols = np.asarray(rows, dtype=np.int64), np.asarray(cols, dtype=np.int64)
-    if rows.size == 0:
-        return []
-    tile = (rows // _TILE) * (-(-grid.width // _TILE)) + cols // _TILE
-    order = np.argsort(tile, kind="stable")
-    cuts = np.flatnonzero(np.diff(tile[order])) + 1
-    items = []
-    for members in np.split(order, cuts):
-        r0, c0 = int(rows[members].min()), int(cols[members].min())
-        items.append((Window(c0, r0, int(cols[members].max()) - c0 + 1, int(rows[members].max()) - r0 + 1),
-                      members))
-
-    def work(item, reader):
-        window, members = item
-        return [block[rows[members] - window.row_off, cols[members] - window.col_off]
-                for block in read(reader, window)]
-
-    found = None
-    for (_, members), values in map_windows(work, grid, feedback, threads, span, items=items):
-        if found is None:
-            found = [np.empty(rows.size, dtype=v.dtype) for v in values]
-        for out, v in zip(found, values):
-            out[members] = v
-    return found
 
 
 def native_values(spec: SourceSpec):
@@ -304,11 +266,10 @@ def validate(raster: str, deposits: str, output_json: str, output_csv: str | Non
             sets.append(("held-out deposits", place_deposits(held_out, held_out_layer, grid, feedback,
                                                              "held-out deposits", "validation"),
                          "prediction"))
-        reader = native_values(spec)
-        values = [read_at_cells(reader, points.rows, points.cols, grid, feedback, threads, (0.0, 0.05))[0]
-                  for _, points, _ in sets]  # deposit_cells leaves at least one cell on the grid
-        known = [v[~np.isnan(v)] for v in values]
-        counts = _count(reader, grid, np.unique(np.concatenate(known)), feedback, threads)
+        # deposit_cells leaves at least one cell on the grid
+        values, counts = rank_deposits(native_values(spec), spec, grid,
+                                       [(points.rows, points.cols) for _, points, _ in sets], feedback,
+                                       threads, (0.0, 0.95))
         if counts.valid == 0:
             raise InputError(f"{name}: the raster has no valid cell: all {grid.cells} cells are nodata")
         if counts.infinite:
@@ -345,19 +306,6 @@ def validate(raster: str, deposits: str, output_json: str, output_csv: str | Non
         run.outputs.commit()
         feedback.set_progress(1.0)
         return ValidationResult(output_json, output_csv, str(lin.lineage_path(output_json)), result)
-
-
-def _count(read, grid: Grid, targets: np.ndarray, feedback: Feedback, threads: int | None) -> RankCounts:
-    """Make the one pass: every block sorted, the targets looked up, the value histogram filled."""
-    counts = RankCounts(targets)
-    targets = counts.targets
-
-    def work(window, reader):
-        return count_block(read(reader, window)[0], targets)
-
-    for _, block in map_windows(work, grid, feedback, threads, (0.05, 0.95)):
-        counts.add(block)
-    return counts
 
 
 def _summarise_set(label: str, points: DepositCells, values: np.ndarray, counts: RankCounts, kind: str,
