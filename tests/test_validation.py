@@ -288,7 +288,7 @@ def test_block_counts_equal_numpys_own_comparisons(seed, dtype, scale, infinite,
         if n:
             values[rng.random(n) < 0.1] = values[0]
     else:
-        values = rng.integers(0, 200, n).astype(dtype)
+        values = rng.integers(-100 if signed and dtype != "uint8" else 0, 200, n).astype(dtype)
     invalid = rng.random(n) < 0.05 if masked else None
     pool = np.concatenate([values[~np.isnan(values)], np.array([0, 1, 250], dtype=dtype)])
     targets = np.unique(rng.choice(pool, int(rng.integers(0, 30))))
