@@ -3,10 +3,10 @@
 Exact ranks need the deposit values before the cells are counted
 (:class:`~favour_plugin.core.validation_counts.RankCounts`), so the tiles
 holding deposits are read first. :func:`rank_deposits` keeps those tiles
-in memory (up to :data:`KEEP_TILE_BYTES`), counts them once the deposit
-values are known, and then reads the rest of the raster in runs of tiles
-that leave the kept ones out; no tile is decompressed twice unless the
-budget ran out. This holds when the file's own blocks fit inside our
+in memory (up to :data:`KEEP_TILE_BYTES`); once the deposit values are
+known it counts the raster window by window, taking the kept tiles from
+memory and reading only the runs of tiles between them, so no tile is
+decompressed twice unless the budget ran out. This holds when the file's own blocks fit inside our
 256 x 256 tiles (Favour writes 256 x 256 tiles); for any other layout
 (strips, larger tiles, a VRT) the deposit cells are read in small windows
 first and then the whole raster once (:func:`read_at_cells`), as a tile
