@@ -30,6 +30,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import os
+import platform
 import re
 import secrets
 import shutil
@@ -37,6 +38,11 @@ import socket
 import tempfile
 from collections.abc import Iterable, Sequence
 
+import numpy as np
+from osgeo import gdal
+
+from .. import about
+from ..core import lineage as lin
 from ..core.errors import OutputError
 from ..core.lineage import lineage_path, lineage_text
 
@@ -473,6 +479,20 @@ class OutputJob:
         self.lock.release()
         if not self.outputs.committed:
             self.outputs.abort()
+
+
+def lineage_header(job: str, created: str, rasters: bool = True) -> dict:
+    """Return the fields every lineage record starts with: format, job, time, tool, host and caution.
+
+    ``rasters`` adds GDAL's version to the tool's (every job that reads or
+    writes a raster or a vector layer).
+    """
+    tool = {"name": about.NAME, "version": about.VERSION, "python": platform.python_version(),
+            "numpy": np.__version__}
+    if rasters:
+        tool["gdal"] = gdal.__version__
+    return {"format": lin.FORMAT, "version": lin.VERSION, "job": job, "created": created, "tool": tool,
+            "host": platform.platform(), "caution": lin.CAUTION}
 
 
 def stage_lineage(outputs: OutputSet, record: dict, output: str) -> str:

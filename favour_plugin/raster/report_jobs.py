@@ -33,7 +33,7 @@ from ..report.html import Figure, page
 from ..report.tree_figures import membership_curves, tree_diagram
 from ..report.validation_result import read_validation
 from .gdalenv import gdal_job
-from .outputs import OutputJob, check_apart, stage_lineage
+from .outputs import OutputJob, check_apart, lineage_header, stage_lineage
 from .sources import open_raster
 from .target_inputs import component_inputs, open_on_grid, read_points
 from .tree_inputs import input_files
@@ -262,16 +262,14 @@ def write_report(favourability: str, output: str, components=None, validation: s
                 + content["meta"], sections)
     feedback.check_cancelled()
     report_record = {
-        "format": lin.FORMAT, "version": lin.VERSION, "job": "report", "created": created,
+        **lineage_header("report", created),
         "tool": {"name": about.NAME, "version": about.VERSION, **{k: v for k, v in versions.items()
                                                                   if k != "Favour"}},
-        "host": platform.platform(),
         "inputs": [{"node": s["role"], "files": [{k: s[k] for k in ("path", "size", "sha256")}]}
                    for s in sources],
         "parameters": {"main_cells": MAIN_CELLS, "panel_cells": PANEL_CELLS, "title": content["title"]},
         "figures": content["figures"], "sections": [s.title for s in sections],
         "outputs": {"report": output}, "warnings": list(feedback.warnings), "seed": None,
-        "caution": lin.CAUTION,
     }
     with OutputJob([output]) as run:
         run.outputs.add_text(output, html)

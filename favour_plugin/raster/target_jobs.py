@@ -14,20 +14,18 @@ the file's ``layer_styles``) and its lineage, all put in place together.
 from __future__ import annotations
 
 import os
-import platform
 from dataclasses import dataclass, field
 
 import numpy as np
 from osgeo import gdal, ogr
 
-from .. import about
 from ..core import lineage as lin
 from ..core import targets as tg
 from ..core.errors import GridError, InputError, LineageError, OutputError, ParameterError
 from ..core.feedback import Feedback
 from .gdalenv import gdal_job
 from .grid import Grid, crs_label
-from .outputs import OutputJob, check_apart, stage_lineage
+from .outputs import OutputJob, check_apart, lineage_header, stage_lineage
 from .sources import SourceSpec
 from .streaming import map_windows
 from .style import style_path
@@ -208,10 +206,7 @@ def find_targets(favourability: str, output: str, top_percent: float | None = 10
         entries += [("deposits", input_files(os.path.abspath(deposits), True))] if deposits else []
         entries += [("validation result", [os.path.abspath(validation)])] if validation else []
         record = {
-            "format": lin.FORMAT, "version": lin.VERSION, "job": "targets", "created": created,
-            "tool": {"name": about.NAME, "version": about.VERSION, "python": platform.python_version(),
-                     "numpy": np.__version__, "gdal": gdal.__version__},
-            "host": platform.platform(),
+            **lineage_header("targets", created),
             "inputs": [{"node": label, "files": lin.describe_files(paths)} for label, paths in entries],
             "grid": grid.to_dict(),
             "source_lineage": _source_note(favourability, record),
@@ -224,7 +219,7 @@ def find_targets(favourability: str, output: str, top_percent: float | None = 10
             "targets": rows[:LINEAGE_ROWS], "targets_in_lineage": f"the first {min(len(rows), LINEAGE_ROWS)} "
             f"of {len(rows)} zones; every zone is in the GeoPackage",
             "outputs": {"targets": output, "style": style, "layer": LAYER},
-            "warnings": list(feedback.warnings), "seed": None, "caution": lin.CAUTION,
+            "warnings": list(feedback.warnings), "seed": None,
         }
         lineage_file = stage_lineage(run.outputs, record, output)
         feedback.check_cancelled()

@@ -9,14 +9,12 @@ redundancy check and the cluster runs all prepare their inputs here.
 from __future__ import annotations
 
 import os
-import platform
 import threading
 from dataclasses import dataclass
 
 import numpy as np
 from osgeo import gdal
 
-from .. import about
 from ..core import lineage as lin
 from ..core.errors import (
     GridError,
@@ -28,6 +26,7 @@ from ..core.tree import PATH_SEPARATOR, EvaluationPlan, Tree
 from .blocks import BLOCK_COLS, BLOCK_ROWS
 from .gdalenv import set_stream_cache
 from .grid import Grid
+from .outputs import lineage_header
 from .sources import BlockReader, SourceSpec, cache_need, open_raster, raster_source
 from .vector import vector_source
 
@@ -262,10 +261,7 @@ def base_record(job: str, created: str, tree: Tree, plan: EvaluationPlan, prepar
     """Return the lineage fields every tree job shares: tool, tree, grid, inputs and checksums."""
     checksums = prepared.checksums()
     return {
-        "format": lin.FORMAT, "version": lin.VERSION, "job": job, "created": created,
-        "tool": {"name": about.NAME, "version": about.VERSION, "python": platform.python_version(),
-                 "numpy": np.__version__, "gdal": gdal.__version__},
-        "host": platform.platform(),
+        **lineage_header(job, created),
         "tree": tree.to_dict(), "base_dir": str(tree.base_dir) if tree.base_dir else None,
         "tree_file": checksums.get(os.path.abspath(tree_file)) if tree_file else None,
         "root": plan.root_path,
@@ -279,5 +275,4 @@ def base_record(job: str, created: str, tree: Tree, plan: EvaluationPlan, prepar
                        "arithmetic": "float64 within each block"},
         "nodata_policy": {step.path: step.operator.nodata for step in plan.steps},
         "seed": None,
-        "caution": lin.CAUTION,
     }

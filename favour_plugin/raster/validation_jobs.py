@@ -24,13 +24,10 @@ import io
 import json
 import math
 import os
-import platform
 from dataclasses import dataclass
 
 import numpy as np
-from osgeo import gdal
 
-from .. import about
 from ..core import lineage as lin
 from ..core import validation as val
 from ..core.errors import InputError, NodataWarning, OutputError, ParameterError
@@ -40,7 +37,7 @@ from .blocks import BLOCK_COLS, BLOCK_ROWS
 from .evidence import DepositCells, deposit_cells
 from .gdalenv import gdal_job, set_stream_cache
 from .grid import Grid
-from .outputs import OutputJob, OutputSet, check_apart, stage_lineage
+from .outputs import OutputJob, OutputSet, check_apart, lineage_header, stage_lineage
 from .rank_pass import rank_deposits
 from .sources import SourceSpec, cache_need, open_raster, raster_source
 from .tree_inputs import FileHasher, input_files
@@ -98,12 +95,8 @@ class Hasher:
 def lineage_record(job: str, created: str, grid: Grid, inputs: list[dict], parameters: dict,
                    feedback: Feedback, seed: int | None, **extra) -> dict:
     """Return the lineage record of a validation job."""
-    return {"format": lin.FORMAT, "version": lin.VERSION, "job": job, "created": created,
-            "tool": {"name": about.NAME, "version": about.VERSION, "python": platform.python_version(),
-                     "numpy": np.__version__, "gdal": gdal.__version__},
-            "host": platform.platform(), "grid": grid.to_dict(), "inputs": inputs,
-            "parameters": parameters, "seed": seed, "warnings": list(feedback.warnings),
-            "caution": lin.CAUTION, **extra}
+    return {**lineage_header(job, created), "grid": grid.to_dict(), "inputs": inputs,
+            "parameters": parameters, "seed": seed, "warnings": list(feedback.warnings), **extra}
 
 
 def json_text(document: dict, target: str) -> str:

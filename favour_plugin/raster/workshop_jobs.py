@@ -12,7 +12,6 @@ from __future__ import annotations
 import csv
 import io
 import os
-import platform
 import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -20,7 +19,6 @@ from pathlib import Path
 
 import numpy as np
 
-from .. import about
 from ..core import lineage as lin
 from ..core.errors import OutputError, ParameterError
 from ..core.pairwise import PairwiseResult, pairwise_weights
@@ -36,18 +34,15 @@ from ..core.workshop import (
     compare_rounds,
     tree_with_weights,
 )
-from .outputs import OutputJob, check_apart, stage_lineage
+from .outputs import OutputJob, check_apart, lineage_header, stage_lineage
 
 SHEET_FORMATS = ("csv", "xlsx")
 
 
 def _record(job: str, inputs: list[dict], parameters: dict, **extra) -> dict:
     """Return a lineage record for a job without a grid."""
-    return {"format": lin.FORMAT, "version": lin.VERSION, "job": job, "created": lin.utc_now(),
-            "tool": {"name": about.NAME, "version": about.VERSION, "python": platform.python_version(),
-                     "numpy": np.__version__},
-            "host": platform.platform(), "inputs": inputs, "parameters": parameters, "seed": None,
-            "caution": lin.CAUTION, **extra}
+    return {**lineage_header(job, lin.utc_now(), rasters=False), "inputs": inputs, "parameters": parameters,
+            "seed": None, **extra}
 
 
 def _file_inputs(role: str, paths: Sequence[str]) -> list[dict]:

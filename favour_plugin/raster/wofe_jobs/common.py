@@ -3,16 +3,14 @@
 from __future__ import annotations
 
 import os
-import platform
 
 import numpy as np
-from osgeo import gdal
 
-from ... import about
 from ...core import lineage as lin
 from ...core.errors import OutputError
 from ...core.feedback import Feedback
 from ..grid import Grid
+from ..outputs import lineage_header
 from ..sources import SourceSpec
 from ..tree_inputs import input_files
 from ..writer import compression_options
@@ -53,13 +51,8 @@ def describe_inputs(entries: list[tuple[str, str, bool]]) -> list[dict]:
 def job_record(job: str, grid: Grid, inputs: list[dict], parameters: dict, feedback: Feedback,
             created: str, **extra) -> dict:
     """Return a lineage record for a weights-of-evidence job."""
-    return {"format": lin.FORMAT, "version": lin.VERSION, "job": job, "created": created,
-            "tool": {"name": about.NAME, "version": about.VERSION,
-                     "python": platform.python_version(), "numpy": np.__version__,
-                     "gdal": gdal.__version__},
-            "host": platform.platform(), "grid": grid.to_dict(), "inputs": inputs,
-            "parameters": parameters, "warnings": list(feedback.warnings), "seed": None,
-            "caution": lin.CAUTION, **extra}
+    return {**lineage_header(job, created), "grid": grid.to_dict(), "inputs": inputs,
+            "parameters": parameters, "warnings": list(feedback.warnings), "seed": None, **extra}
 
 
 def masked_block(block: np.ndarray, window, reader, study: SourceSpec | None) -> np.ndarray:
